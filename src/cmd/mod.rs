@@ -1,0 +1,41 @@
+//! One module per subcommand. Shared pieces: logging setup and the examples
+//! printed under `tessera --help`.
+
+use anyhow::Context;
+
+pub mod check;
+pub mod export;
+pub mod init;
+pub mod simulate;
+
+/// Examples shown at the end of `tessera --help`.
+pub const EXAMPLES: &str = "\
+Examples:
+  tessera init                         write sweep.toml for the built-in tiling model
+  tessera check sweep.toml --design    validate it and print the initial design as CSV
+  tessera simulate tiling --json       one run of the built-in model
+  tessera export --db sweep.db         every evaluation as CSV";
+
+/// Log output format.
+#[derive(Clone, Copy, Debug, clap::ValueEnum)]
+pub enum LogFormat {
+    /// Human-readable lines.
+    Text,
+    /// One JSON object per line.
+    Json,
+}
+
+/// Sets up `tracing` to log to stderr at `level` (results go to stdout).
+pub fn init_logging(level: &str, format: LogFormat) -> anyhow::Result<()> {
+    let filter = tracing_subscriber::EnvFilter::try_new(level).with_context(|| {
+        format!("--log-level {level:?} is not valid: use error, warn, info, debug or trace")
+    })?;
+    let builder = tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_writer(std::io::stderr);
+    match format {
+        LogFormat::Text => builder.init(),
+        LogFormat::Json => builder.json().init(),
+    }
+    Ok(())
+}

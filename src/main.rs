@@ -1,0 +1,62 @@
+//! The `tessera` command line: argument parsing and wiring only.
+//!
+//! Each subcommand lives in `src/cmd/<name>.rs` with its own clap `Args`
+//! struct and a `run` function; the logic lives in the library crates.
+
+use clap::{Parser, Subcommand};
+use std::process::ExitCode;
+
+mod cmd;
+
+/// Distributed parameter sweeps and Gaussian-process surrogates for
+/// stochastic simulations of tissue formation.
+///
+/// Typical night: `tessera init` writes a sweep file; `tessera run sweep.toml`
+/// runs it on this machine (or `tessera serve` plus `tessera worker` on many);
+/// next morning `tessera status`, `tessera predict` and `tessera export` read
+/// the results.
+#[derive(Parser, Debug)]
+#[command(name = "tessera", version, about, long_about, after_help = cmd::EXAMPLES)]
+struct Cli {
+    /// How much to log on stderr: error, warn, info, debug or trace.
+    #[arg(long, global = true, default_value = "warn", value_name = "LEVEL")]
+    log_level: String,
+    /// Log format on stderr: text (for people) or json (for log collectors).
+    #[arg(long, global = true, default_value = "text", value_name = "FORMAT")]
+    log_format: cmd::LogFormat,
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Write a commented starter sweep file.
+    Init(cmd::init::InitArgs),
+    /// Validate a sweep file and show its parameters (and, with --design, the initial design).
+    Check(cmd::check::CheckArgs),
+    /// Run one simulation and print its metrics.
+    Simulate(cmd::simulate::SimulateArgs),
+    /// Write every evaluation in a sweep database as CSV or JSON lines.
+    Export(cmd::export::ExportArgs),
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    if let Err(e) = cmd::init_logging(&cli.log_level, cli.log_format) {
+        eprintln!("error: {e:#}");
+        return ExitCode::from(2);
+    }
+    let outcome = match cli.command {
+        Command::Init(a) => cmd::init::run(a),
+        Command::Check(a) => cmd::check::run(a),
+        Command::Simulate(a) => cmd::simulate::run(a),
+        Command::Export(a) => cmd::export::run(a),
+    };
+    match outcome {
+        Ok(code) => code,
+        Err(e) => {
+            eprintln!("error: {e:#}");
+            ExitCode::from(1)
+        }
+    }
+}
