@@ -4,3 +4,9 @@
 //!
 //! It must not decide what to run next: the coordinator does. It runs only
 //! the built-in models and the external commands its own operator configured.
+
+pub mod client;
+pub mod external;
+pub mod models;
+pub mod runner;
+pub mod spool;
