@@ -5,3 +5,5 @@
 //! async, gRPC or SQLite; every function is deterministic given its inputs
 //! and a seed. Inputs live in the unit cube: the coordinator maps natural
 //! units (log scales, integers) to and from it.
+
+pub mod design;
