@@ -3,7 +3,7 @@
 scikit-learn. Writes JSON under surrogate/tests/fixtures/; the tests read the
 committed files (CI has no Python).
 
-Usage: python3 scripts/fixtures_surrogate.py [design|gp|all]
+Usage: python3 scripts/fixtures_surrogate.py [design|acquisition|gp|all]
 
 Each JSON file records the library versions that produced it.
 """
@@ -88,9 +88,36 @@ def design():
     )
 
 
+def acquisition():
+    """Expected improvement (minimisation, Jones, Schonlau & Welch 1998) in
+    50-digit arithmetic with mpmath, including the far lower tail."""
+    import mpmath
+
+    mpmath.mp.dps = 50
+    cases = []
+    for f_best, mu, sigma in [
+        (0.0, 0.5, 1.0), (0.0, 0.0, 1.0), (0.0, -1.0, 1.0), (0.0, 1.0, 1.0),
+        (0.0, 0.5, 2.0), (0.0, 2.0, 0.5), (1.3, 0.2, 0.7), (0.0, 9.5, 1.0),
+        (0.0, 10.5, 1.0), (0.0, 12.0, 1.0), (0.0, 20.0, 1.0), (0.0, 35.0, 1.0),
+        (2.0, -30.0, 1.0), (0.0, 3.0, 1e-3),
+    ]:
+        g = mpmath.mpf(f_best) - mpmath.mpf(mu)
+        sg = mpmath.mpf(sigma)
+        z = g / sg
+        ei = g * mpmath.ncdf(z) + sg * mpmath.npdf(z)
+        cases.append({"f_best": f_best, "mu": mu, "sigma": sigma, "ei": float(ei)})
+    cdf = [{"z": z, "cdf": float(mpmath.ncdf(z))} for z in [-30.0, -8.0, -3.0, -1.0, 0.5, 1.959963984540054, 4.0]]
+    write(
+        "ei_mpmath.json",
+        {"versions": {"mpmath": mpmath.__version__}, "cases": cases, "normal_cdf": cdf},
+    )
+
+
 if __name__ == "__main__":
     what = sys.argv[1] if len(sys.argv) > 1 else "all"
     if what in ("design", "all"):
         design()
+    if what in ("acquisition", "all"):
+        acquisition()
     if what in ("gp", "all") and "gp" in globals():
         globals()["gp"]()

@@ -6,4 +6,5 @@
 //! and a seed. Inputs live in the unit cube: the coordinator maps natural
 //! units (log scales, integers) to and from it.
 
+pub mod acquisition;
 pub mod design;
