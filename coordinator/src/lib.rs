@@ -4,3 +4,11 @@
 //!
 //! It must not run simulations: workers do. It never sends a command line to
 //! a worker, only a model name and parameter values.
+//!
+//! Start reading at [`engine::Engine`]: one running sweep. Requests arrive
+//! through [`service`] (gRPC), are decided by [`scheduler`] (pure state, no
+//! I/O), and results become durable through [`committer`] (the only SQLite
+//! writer while serving, with group commit) before they are acknowledged.
+
+pub mod seed;
+pub mod spec;

@@ -1,0 +1,295 @@
+//! The sweep file: what to vary, how to run the model, what to optimise.
+//!
+//! [`parse`] reads the TOML text and validates it in one pass, collecting
+//! every problem (with file, line, column, key and what would be valid)
+//! instead of stopping at the first. The layout of the file is documented key
+//! by key in `docs/sweep-file.md`.
+//!
+//! A [`Spec`] also owns the mapping between the unit cube, where the
+//! surrogate crate works, and the natural units of the parameters (log
+//! scales, integers), and turns a run's metrics into the single number the
+//! planner minimises ([`Spec::loss`]).
+
+mod error;
+mod reader;
+mod unit_cube;
+
+use std::collections::BTreeMap;
+use std::time::Duration;
+
+pub use error::{SpecError, SpecErrors};
+
+/// A validated sweep file.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Spec {
+    /// Short free-text name of the sweep.
+    pub name: String,
+    /// Free-text description (empty if not given).
+    pub description: String,
+    /// Fixes the initial design and every replicate seed.
+    pub seed: u64,
+    /// Points to evaluate in total, the initial design included.
+    pub budget: u32,
+    /// Points in the space-filling initial design (at most `budget`).
+    pub initial: u32,
+    /// Runs per point, each with its own derived seed.
+    pub replicates: u32,
+    /// Points proposed at once after the design; `None`: as many as there are free worker slots.
+    pub batch: Option<u32>,
+    /// How points after the initial design are chosen.
+    pub strategy: Strategy,
+    /// Re-runs of a failed evaluation before it counts as failed.
+    pub retries: u32,
+    /// The model and how to run it.
+    pub model: ModelSpec,
+    /// The swept parameters, in the order they appear in the file.
+    pub params: Vec<ParamSpec>,
+    /// The metric to minimise or maximise, if any.
+    pub objective: Option<Objective>,
+    /// Observed values to calibrate against, in file order.
+    pub targets: Vec<Target>,
+    /// Units of metrics (from `[metrics.NAME]` and `[[target]]` `unit`); a metric not listed has no unit.
+    pub metric_units: BTreeMap<String, String>,
+}
+
+/// How points after the initial design are chosen.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum Strategy {
+    /// Expected improvement: look for the best value of the objective.
+    Improve,
+    /// Largest predictive standard deviation: map trends over the whole range.
+    Explore,
+}
+
+impl Strategy {
+    /// The word used in the sweep file.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Strategy::Improve => "improve",
+            Strategy::Explore => "explore",
+        }
+    }
+}
+
+/// How a parameter's range is spread over the unit interval.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum Scale {
+    /// Evenly in the natural units.
+    Linear,
+    /// Evenly in the logarithm (for quantities spanning orders of magnitude).
+    Log,
+}
+
+impl Scale {
+    /// The word used in the sweep file.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Scale::Linear => "linear",
+            Scale::Log => "log",
+        }
+    }
+}
+
+/// Whether the objective metric should be small or large.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum Direction {
+    /// Smaller is better.
+    Minimize,
+    /// Larger is better.
+    Maximize,
+}
+
+/// The model and how to run it.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ModelSpec {
+    /// A built-in model, or a name that workers map to a command.
+    pub name: String,
+    /// Longest a single run may take before it counts as failed.
+    pub timeout: Duration,
+    /// Command for workers started by `tessera run` on this machine (never sent over the network).
+    pub command: Option<Vec<String>>,
+    /// Inputs passed unchanged to every run.
+    pub fixed: BTreeMap<String, serde_json::Value>,
+}
+
+/// One swept parameter.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ParamSpec {
+    /// The model input this parameter sets.
+    pub name: String,
+    /// Lowest value (inclusive).
+    pub lo: f64,
+    /// Highest value (inclusive).
+    pub hi: f64,
+    /// How the range is spread over the unit interval.
+    pub scale: Scale,
+    /// Only whole numbers between `lo` and `hi`.
+    pub integer: bool,
+    /// Unit shown in tables and plots (empty: none).
+    pub unit: String,
+    /// Free-text description (empty if not given).
+    pub description: String,
+}
+
+/// The metric to minimise or maximise.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Objective {
+    /// Metric name, as reported by the model.
+    pub metric: String,
+    /// Whether smaller or larger is better.
+    pub direction: Direction,
+}
+
+/// An observed value of a metric, for calibration.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Target {
+    /// Metric name, as reported by the model.
+    pub metric: String,
+    /// The observed value.
+    pub value: f64,
+    /// Standard deviation of the observation (> 0).
+    pub sd: f64,
+}
+
+/// Parses and validates a sweep file. `file` is only used in error messages.
+///
+/// Returns every problem found, not only the first.
+pub fn parse(text: &str, file: &str) -> Result<Spec, SpecErrors> {
+    reader::read(text, file)
+}
+
+impl Spec {
+    /// Number of swept parameters.
+    pub fn dimension(&self) -> usize {
+        self.params.len()
+    }
+
+    /// Parameter names in file order.
+    pub fn param_names(&self) -> Vec<&str> {
+        self.params.iter().map(|p| p.name.as_str()).collect()
+    }
+
+    /// Maps a point of the unit cube to natural units (see [`ParamSpec::to_natural`]).
+    #[track_caller]
+    pub fn to_natural(&self, unit: &[f64]) -> Vec<f64> {
+        assert_eq!(
+            unit.len(),
+            self.params.len(),
+            "point has {} coordinates, the sweep has {} parameters",
+            unit.len(),
+            self.params.len()
+        );
+        self.params
+            .iter()
+            .zip(unit)
+            .map(|(p, &u)| p.to_natural(u))
+            .collect()
+    }
+
+    /// Maps a point in natural units to the unit cube (see [`ParamSpec::to_unit`]).
+    #[track_caller]
+    pub fn to_unit(&self, natural: &[f64]) -> Vec<f64> {
+        assert_eq!(
+            natural.len(),
+            self.params.len(),
+            "point has {} coordinates, the sweep has {} parameters",
+            natural.len(),
+            self.params.len()
+        );
+        self.params
+            .iter()
+            .zip(natural)
+            .map(|(p, &x)| p.to_unit(x))
+            .collect()
+    }
+
+    /// The initial design in natural units: `initial` points of a maximin
+    /// Latin hypercube (McKay, Beckman & Conover 1979; Morris & Mitchell 1995)
+    /// drawn with the sweep seed, mapped through [`Spec::to_natural`].
+    pub fn initial_design(&self) -> Vec<Vec<f64>> {
+        let unit = tessera_surrogate::design::maximin_lhs(
+            self.initial as usize,
+            self.params.len(),
+            self.seed,
+        );
+        unit.iter().map(|u| self.to_natural(u)).collect()
+    }
+
+    /// The metrics the planner needs from every run: the objective metric,
+    /// then the target metrics, without repeats.
+    pub fn metrics_needed(&self) -> Vec<String> {
+        let mut out: Vec<String> = Vec::new();
+        let names = self
+            .objective
+            .iter()
+            .map(|o| &o.metric)
+            .chain(self.targets.iter().map(|t| &t.metric));
+        for m in names {
+            if !out.contains(m) {
+                out.push(m.clone());
+            }
+        }
+        out
+    }
+
+    /// The number the planner minimises, from one run's (or one point's mean) metrics.
+    ///
+    /// With an objective: the metric itself (minimize) or its negative
+    /// (maximize); targets are then only used to mark the calibrated region.
+    /// With targets only: the standardised discrepancy
+    /// `sum ((m - value) / sd)^2` over the targets (the squared form of the
+    /// implausibility of Craig et al. 1997). `None` if a needed metric is
+    /// missing or not finite.
+    pub fn loss(&self, metrics: &BTreeMap<String, f64>) -> Option<f64> {
+        let finite = |name: &str| metrics.get(name).copied().filter(|v| v.is_finite());
+        match &self.objective {
+            Some(o) => {
+                let m = finite(&o.metric)?;
+                Some(match o.direction {
+                    Direction::Minimize => m,
+                    Direction::Maximize => -m,
+                })
+            }
+            None => {
+                if self.targets.is_empty() {
+                    return None;
+                }
+                let mut sum = 0.0;
+                for t in &self.targets {
+                    let m = finite(&t.metric)?;
+                    let z = (m - t.value) / t.sd;
+                    sum += z * z;
+                }
+                Some(sum)
+            }
+        }
+    }
+
+    /// What [`Spec::loss`] measures, for table headings: `"territory_cv (min)"`,
+    /// `"coverage (max)"` or `"calibration discrepancy"`.
+    pub fn objective_label(&self) -> String {
+        match &self.objective {
+            Some(o) => match o.direction {
+                Direction::Minimize => format!("{} (min)", o.metric),
+                Direction::Maximize => format!("{} (max)", o.metric),
+            },
+            None => "calibration discrepancy".to_string(),
+        }
+    }
+
+    /// Turns a loss back into the user's terms (a maximised metric changes sign back).
+    pub fn display_objective(&self, loss: f64) -> f64 {
+        match &self.objective {
+            Some(Objective {
+                direction: Direction::Maximize,
+                ..
+            }) => -loss,
+            _ => loss,
+        }
+    }
+
+    /// Unit of a metric, or `""` if it has none.
+    pub fn metric_unit(&self, metric: &str) -> &str {
+        self.metric_units.get(metric).map_or("", String::as_str)
+    }
+}

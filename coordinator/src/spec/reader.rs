@@ -1,0 +1,1140 @@
+//! Reading and validating the sweep file.
+//!
+//! The file is parsed with the `toml` crate into its spanned document tree
+//! (`toml::de::DeTable`), which keeps the byte range of every key and value.
+//! The tree is then walked by hand rather than through `#[derive(Deserialize)]`,
+//! because serde stops at the first problem while users need every problem at
+//! once, each with its line, column and key.
+
+use std::collections::{BTreeMap, BTreeSet};
+use std::time::Duration;
+
+use toml::de::{DeTable, DeValue};
+use toml::Spanned;
+
+use super::error::LineIndex;
+use super::{
+    Direction, ModelSpec, Objective, ParamSpec, Scale, Spec, SpecError, SpecErrors, Strategy,
+    Target,
+};
+
+type Value<'i> = Spanned<DeValue<'i>>;
+
+const TOP_KEYS: &[&str] = &[
+    "name",
+    "description",
+    "seed",
+    "budget",
+    "initial",
+    "replicates",
+    "batch",
+    "strategy",
+    "retries",
+    "model",
+    "params",
+    "objective",
+    "target",
+    "metrics",
+];
+const MODEL_KEYS: &[&str] = &["name", "timeout", "command", "fixed"];
+const PARAM_KEYS: &[&str] = &["range", "scale", "integer", "unit", "description"];
+const OBJECTIVE_KEYS: &[&str] = &["minimize", "maximize"];
+const TARGET_KEYS: &[&str] = &["metric", "value", "sd", "unit"];
+const METRIC_KEYS: &[&str] = &["unit", "description"];
+
+/// Default `retries`.
+const DEFAULT_RETRIES: u32 = 2;
+/// Default `model.timeout`.
+const DEFAULT_TIMEOUT: Duration = Duration::from_secs(3600);
+/// Default `initial` per parameter (common practice, no source: the
+/// "10 x dimension" rule of thumb for initial GP designs).
+const INITIAL_PER_PARAM: u32 = 10;
+/// Largest accepted `replicates` and `retries` (a guard against typos).
+const MAX_REPEATS: i64 = 10_000;
+
+pub(super) fn read(text: &str, file: &str) -> Result<Spec, SpecErrors> {
+    let mut r = Reader {
+        file,
+        lines: LineIndex::new(text),
+        errors: Vec::new(),
+    };
+    let (root, syntax) = DeTable::parse_recoverable(text);
+    if !syntax.is_empty() {
+        let mut last = String::new();
+        for e in syntax {
+            let at = e.span().map_or(0, |s| s.start);
+            let message = e.message().trim().to_string();
+            // One mistake (a table given twice) can be reported at each of its keys.
+            if message == last {
+                continue;
+            }
+            let hint = if message == "duplicate key" {
+                " (this key or table is already given above; each may appear once)"
+            } else {
+                ""
+            };
+            r.error(at, "", format!("not valid TOML: {message}{hint}"));
+            last = message;
+        }
+        return Err(r.finish());
+    }
+    let spec = r.spec(root.get_ref());
+    match spec {
+        Some(spec) if r.errors.is_empty() => Ok(spec),
+        _ => Err(r.finish()),
+    }
+}
+
+/// Collects errors while walking the document.
+struct Reader<'a> {
+    file: &'a str,
+    lines: LineIndex<'a>,
+    /// (byte offset, error): sorted by offset at the end.
+    errors: Vec<(usize, SpecError)>,
+}
+
+fn join(path: &str, key: &str) -> String {
+    if path.is_empty() {
+        key.to_string()
+    } else {
+        format!("{path}.{key}")
+    }
+}
+
+/// A name usable as a CSV column and model input: a letter or `_`, then letters, digits or `_`.
+fn valid_name(name: &str) -> bool {
+    let mut chars = name.chars();
+    matches!(chars.next(), Some(c) if c.is_ascii_alphabetic() || c == '_')
+        && chars.all(|c| c.is_ascii_alphanumeric() || c == '_')
+}
+
+const NAME_RULE: &str =
+    "names start with a letter or `_` and hold only letters, digits and `_` (e.g. height_mean)";
+
+fn type_name(v: &DeValue<'_>) -> &'static str {
+    match v {
+        DeValue::String(_) => "a string",
+        DeValue::Integer(_) => "a whole number",
+        DeValue::Float(_) => "a decimal number",
+        DeValue::Boolean(_) => "true/false",
+        DeValue::Datetime(_) => "a date",
+        DeValue::Array(_) => "a list",
+        DeValue::Table(_) => "a table",
+    }
+}
+
+/// The closest known key, if it is close enough to be a likely misspelling.
+fn closest<'k>(word: &str, known: &[&'k str]) -> Option<&'k str> {
+    let lower = word.to_ascii_lowercase();
+    known
+        .iter()
+        .map(|k| (strsim::damerau_levenshtein(&lower, k), *k))
+        .filter(|(d, k)| {
+            *d <= (k.len() / 3).max(1) || lower.starts_with(*k) || k.starts_with(&*lower)
+        })
+        .min_by_key(|(d, _)| *d)
+        .map(|(_, k)| k)
+}
+
+/// Formats a number for messages without a trailing `.0` on whole numbers.
+fn num(x: f64) -> String {
+    format!("{x}")
+}
+
+fn parse_integer(v: &DeValue<'_>) -> Option<Option<i64>> {
+    match v {
+        DeValue::Integer(i) => {
+            let digits: String = i.as_str().chars().filter(|c| *c != '_').collect();
+            Some(i64::from_str_radix(&digits, i.radix()).ok())
+        }
+        _ => None,
+    }
+}
+
+fn parse_float(v: &DeValue<'_>) -> Option<f64> {
+    match v {
+        DeValue::Float(f) => {
+            let s: String = f.as_str().chars().filter(|c| *c != '_').collect();
+            let neg = s.starts_with('-');
+            if s.ends_with("nan") {
+                Some(f64::NAN)
+            } else if s.ends_with("inf") {
+                Some(if neg {
+                    f64::NEG_INFINITY
+                } else {
+                    f64::INFINITY
+                })
+            } else {
+                s.parse().ok()
+            }
+        }
+        DeValue::Integer(_) => parse_integer(v).flatten().map(|i| i as f64),
+        _ => None,
+    }
+}
+
+/// Position of a table in the file: its own span if the parser gave it one,
+/// else the key that names it.
+fn table_start(value: &Value<'_>, key_start: usize) -> usize {
+    let s = value.span();
+    if s.start < s.end {
+        s.start
+    } else {
+        key_start
+    }
+}
+
+impl<'a> Reader<'a> {
+    fn error(&mut self, at: usize, key: &str, message: impl Into<String>) {
+        let (line, column) = self.lines.line_col(at);
+        self.errors.push((
+            at,
+            SpecError {
+                file: self.file.to_string(),
+                line,
+                column,
+                key: key.to_string(),
+                message: message.into(),
+            },
+        ));
+    }
+
+    fn finish(&mut self) -> SpecErrors {
+        let mut errors = std::mem::take(&mut self.errors);
+        errors.sort_by_key(|(at, _)| *at);
+        SpecErrors(errors.into_iter().map(|(_, e)| e).collect())
+    }
+
+    fn line_of(&self, at: usize) -> usize {
+        self.lines.line_col(at).0
+    }
+
+    /// Reports every key of `table` that is not in `known`, with a suggestion.
+    fn check_keys(&mut self, table: &DeTable<'_>, path: &str, known: &[&str]) {
+        for (k, _) in table.iter() {
+            let name: &str = k.get_ref();
+            if known.contains(&name) {
+                continue;
+            }
+            let hint = match closest(name, known) {
+                Some(c) => format!("did you mean `{c}`? "),
+                None => String::new(),
+            };
+            let message = format!(
+                "unknown key `{name}`; {hint}valid keys here: {}",
+                known.join(", ")
+            );
+            self.error(k.span().start, &join(path, name), message);
+        }
+    }
+
+    fn lookup<'t, 'i>(
+        table: &'t DeTable<'i>,
+        key: &str,
+    ) -> Option<(&'t Spanned<std::borrow::Cow<'i, str>>, &'t Value<'i>)> {
+        table.get_key_value(key)
+    }
+
+    fn string(&mut self, v: &Value<'_>, key: &str, example: &str) -> Option<String> {
+        match v.get_ref() {
+            DeValue::String(s) => Some(s.to_string()),
+            other => {
+                let found = type_name(other);
+                self.error(
+                    v.span().start,
+                    key,
+                    format!("expected text in quotes, e.g. {key} = {example}; found {found}"),
+                );
+                None
+            }
+        }
+    }
+
+    fn nonempty_string(&mut self, v: &Value<'_>, key: &str, example: &str) -> Option<String> {
+        let s = self.string(v, key, example)?;
+        if s.trim().is_empty() {
+            self.error(
+                v.span().start,
+                key,
+                format!("must not be empty, e.g. {key} = {example}"),
+            );
+            return None;
+        }
+        Some(s)
+    }
+
+    /// A finite number (whole or decimal).
+    fn number(&mut self, v: &Value<'_>, key: &str) -> Option<f64> {
+        match parse_float(v.get_ref()) {
+            Some(x) if x.is_finite() => Some(x),
+            Some(_) => {
+                self.error(
+                    v.span().start,
+                    key,
+                    "must be a finite number (not nan or inf)",
+                );
+                None
+            }
+            None => {
+                let found = type_name(v.get_ref());
+                self.error(
+                    v.span().start,
+                    key,
+                    format!("expected a number, e.g. 0.5 or 20; found {found}"),
+                );
+                None
+            }
+        }
+    }
+
+    /// A whole number in `[min, max]`.
+    fn whole(&mut self, v: &Value<'_>, key: &str, min: i64, max: i64, what: &str) -> Option<i64> {
+        let at = v.span().start;
+        match parse_integer(v.get_ref()) {
+            Some(Some(i)) if (min..=max).contains(&i) => Some(i),
+            Some(_) => {
+                self.error(
+                    at,
+                    key,
+                    format!("must be a whole number from {min} to {max} ({what})"),
+                );
+                None
+            }
+            None => {
+                let found = match v.get_ref() {
+                    DeValue::Float(f) => format!("the decimal number {}", f.as_str()),
+                    other => type_name(other).to_string(),
+                };
+                self.error(
+                    at,
+                    key,
+                    format!(
+                        "expected a whole number without decimal point, e.g. {key} = {min_ex}; found {found} ({what})",
+                        min_ex = min.max(1)
+                    ),
+                );
+                None
+            }
+        }
+    }
+
+    fn boolean(&mut self, v: &Value<'_>, key: &str) -> Option<bool> {
+        match v.get_ref() {
+            DeValue::Boolean(b) => Some(*b),
+            other => {
+                let found = type_name(other);
+                self.error(
+                    v.span().start,
+                    key,
+                    format!("expected true or false (without quotes); found {found}"),
+                );
+                None
+            }
+        }
+    }
+
+    fn table<'t, 'i>(
+        &mut self,
+        v: &'t Value<'i>,
+        key: &str,
+        example: &str,
+    ) -> Option<&'t DeTable<'i>> {
+        match v.get_ref() {
+            DeValue::Table(t) => Some(t),
+            other => {
+                let found = type_name(other);
+                self.error(
+                    v.span().start,
+                    key,
+                    format!("expected a table, written as a header line {example}; found {found}"),
+                );
+                None
+            }
+        }
+    }
+
+    fn spec(&mut self, root: &DeTable<'_>) -> Option<Spec> {
+        self.check_keys(root, "", TOP_KEYS);
+
+        let name = match Self::lookup(root, "name") {
+            Some((_, v)) => self.nonempty_string(v, "name", "\"height-spread\""),
+            None => {
+                self.error(
+                    0,
+                    "name",
+                    "missing: give the sweep a short name, e.g. name = \"height-spread\"",
+                );
+                None
+            }
+        };
+        let description = match Self::lookup(root, "description") {
+            Some((_, v)) => self.string(v, "description", "\"what this sweep is for\""),
+            None => Some(String::new()),
+        };
+        let seed = match Self::lookup(root, "seed") {
+            Some((_, v)) => self
+                .whole(
+                    v,
+                    "seed",
+                    0,
+                    i64::MAX,
+                    "it fixes the design and every replicate seed",
+                )
+                .map(|s| s as u64),
+            None => Some(0),
+        };
+        let budget = match Self::lookup(root, "budget") {
+            Some((_, v)) => self
+                .whole(
+                    v,
+                    "budget",
+                    1,
+                    u32::MAX as i64,
+                    "points to evaluate in total",
+                )
+                .map(|b| (b as u32, v.span().start)),
+            None => {
+                self.error(
+                    0,
+                    "budget",
+                    "missing: how many points to evaluate in total, e.g. budget = 60",
+                );
+                None
+            }
+        };
+        let initial = match Self::lookup(root, "initial") {
+            Some((_, v)) => self
+                .whole(
+                    v,
+                    "initial",
+                    1,
+                    u32::MAX as i64,
+                    "points in the initial design",
+                )
+                .map(|i| Some((i as u32, v.span().start))),
+            None => Some(None),
+        };
+        let replicates = self.opt_count(root, "replicates", 1, 1, "runs per point");
+        let retries = self.opt_count(
+            root,
+            "retries",
+            DEFAULT_RETRIES,
+            0,
+            "re-runs of a failed evaluation",
+        );
+        let batch = match Self::lookup(root, "batch") {
+            Some((_, v)) => self
+                .whole(v, "batch", 1, u32::MAX as i64, "points proposed at once")
+                .map(|b| Some(b as u32)),
+            None => Some(None),
+        };
+        let strategy = match Self::lookup(root, "strategy") {
+            Some((_, v)) => self.strategy(v),
+            None => Some(Strategy::Improve),
+        };
+
+        let fixed_names: BTreeSet<String> = Self::lookup(root, "model")
+            .and_then(|(_, m)| match m.get_ref() {
+                DeValue::Table(t) => t.get("fixed"),
+                _ => None,
+            })
+            .and_then(|f| match f.get_ref() {
+                DeValue::Table(t) => Some(t.keys().map(|k| k.get_ref().to_string()).collect()),
+                _ => None,
+            })
+            .unwrap_or_default();
+
+        let model = match Self::lookup(root, "model") {
+            Some((k, v)) => self.model(k.span().start, v),
+            None => {
+                self.error(
+                    0,
+                    "model",
+                    "missing: add a [model] table with name = \"...\" (a built-in model such as \"tiling\", or a name your workers run)",
+                );
+                None
+            }
+        };
+        let params = match Self::lookup(root, "params") {
+            Some((k, v)) => self.params(k.span().start, v, &fixed_names),
+            None => {
+                self.error(
+                    0,
+                    "params",
+                    "no parameters to sweep: add at least one [params.NAME] table with range = [low, high]",
+                );
+                None
+            }
+        };
+        let objective = match Self::lookup(root, "objective") {
+            Some((k, v)) => self.objective(k.span().start, v).map(Some),
+            None => Some(None),
+        };
+        let mut metric_units = BTreeMap::new();
+        let metrics_ok = match Self::lookup(root, "metrics") {
+            Some((_, v)) => self.metrics(v, &mut metric_units),
+            None => true,
+        };
+        let targets = match Self::lookup(root, "target") {
+            Some((_, v)) => self.targets(v, &mut metric_units),
+            None => Some(Vec::new()),
+        };
+        if let (Some(None), Some(t)) = (&objective, &targets) {
+            if t.is_empty() {
+                self.error(
+                    0,
+                    "objective",
+                    "nothing to optimise: add [objective] with minimize = \"METRIC\" or maximize = \"METRIC\", or add [[target]] tables (metric, value, sd) to calibrate against data",
+                );
+            }
+        }
+
+        let params = params?;
+        let (budget, _) = budget?;
+        let initial = match initial? {
+            Some((i, at)) => {
+                if i > budget {
+                    self.error(
+                        at,
+                        "initial",
+                        format!(
+                            "the initial design ({i} points) is larger than the budget ({budget} points); use initial <= {budget} or raise budget"
+                        ),
+                    );
+                }
+                i
+            }
+            None => (INITIAL_PER_PARAM.saturating_mul(params.len() as u32)).clamp(1, budget),
+        };
+        if !metrics_ok {
+            return None;
+        }
+        Some(Spec {
+            name: name?,
+            description: description?,
+            seed: seed?,
+            budget,
+            initial,
+            replicates: replicates?,
+            batch: batch?,
+            strategy: strategy?,
+            retries: retries?,
+            model: model?,
+            params,
+            objective: objective?,
+            targets: targets?,
+            metric_units,
+        })
+    }
+
+    fn opt_count(
+        &mut self,
+        root: &DeTable<'_>,
+        key: &str,
+        default: u32,
+        min: i64,
+        what: &str,
+    ) -> Option<u32> {
+        match Self::lookup(root, key) {
+            Some((_, v)) => self.whole(v, key, min, MAX_REPEATS, what).map(|n| n as u32),
+            None => Some(default),
+        }
+    }
+
+    fn strategy(&mut self, v: &Value<'_>) -> Option<Strategy> {
+        let s = self.string(v, "strategy", "\"improve\"")?;
+        match s.as_str() {
+            "improve" => Some(Strategy::Improve),
+            "explore" => Some(Strategy::Explore),
+            other => {
+                let hint = closest(other, &["improve", "explore"])
+                    .map(|c| format!("did you mean \"{c}\"? "))
+                    .unwrap_or_default();
+                self.error(
+                    v.span().start,
+                    "strategy",
+                    format!(
+                        "unknown strategy \"{other}\"; {hint}valid: \"improve\" (search for the best objective by expected improvement) or \"explore\" (map trends where the surrogate is least certain)"
+                    ),
+                );
+                None
+            }
+        }
+    }
+
+    fn model(&mut self, key_at: usize, v: &Value<'_>) -> Option<ModelSpec> {
+        let t = self.table(v, "model", "[model]")?;
+        let at = table_start(v, key_at);
+        self.check_keys(t, "model", MODEL_KEYS);
+        let name = match Self::lookup(t, "name") {
+            Some((_, v)) => self.nonempty_string(v, "model.name", "\"tiling\""),
+            None => {
+                self.error(
+                    at,
+                    "model.name",
+                    "missing: which model to run, e.g. name = \"tiling\" (a built-in model) or a name your workers map to a command",
+                );
+                None
+            }
+        };
+        let timeout = match Self::lookup(t, "timeout") {
+            Some((_, v)) => self.duration(v, "model.timeout"),
+            None => Some(DEFAULT_TIMEOUT),
+        };
+        let command = match Self::lookup(t, "command") {
+            Some((_, v)) => self.command(v).map(Some),
+            None => Some(None),
+        };
+        let fixed = match Self::lookup(t, "fixed") {
+            Some((_, v)) => self.fixed(v),
+            None => Some(BTreeMap::new()),
+        };
+        Some(ModelSpec {
+            name: name?,
+            timeout: timeout?,
+            command: command?,
+            fixed: fixed?,
+        })
+    }
+
+    fn duration(&mut self, v: &Value<'_>, key: &str) -> Option<Duration> {
+        const FORMS: &str = "valid forms: \"90s\", \"10m\", \"2h\", \"1h 30m\"";
+        let at = v.span().start;
+        let s = match v.get_ref() {
+            DeValue::String(s) => s.to_string(),
+            other => {
+                let found = match other {
+                    DeValue::Integer(i) => format!("the bare number {}", i.as_str()),
+                    DeValue::Float(f) => format!("the bare number {}", f.as_str()),
+                    o => type_name(o).to_string(),
+                };
+                self.error(
+                    at,
+                    key,
+                    format!("expected a duration in quotes with a unit; found {found}; {FORMS}"),
+                );
+                return None;
+            }
+        };
+        match humantime::parse_duration(s.trim()) {
+            Ok(d) if d.is_zero() => {
+                self.error(at, key, format!("must be longer than zero; {FORMS}"));
+                None
+            }
+            Ok(d) => Some(d),
+            Err(e) => {
+                self.error(at, key, format!("\"{s}\" is not a duration ({e}); {FORMS}"));
+                None
+            }
+        }
+    }
+
+    fn command(&mut self, v: &Value<'_>) -> Option<Vec<String>> {
+        const EX: &str = "e.g. command = [\"python3\", \"sim.py\"]";
+        let at = v.span().start;
+        let DeValue::Array(items) = v.get_ref() else {
+            let found = type_name(v.get_ref());
+            self.error(
+                at,
+                "model.command",
+                format!("expected a list of words, the program first, {EX}; found {found}"),
+            );
+            return None;
+        };
+        let mut out = Vec::new();
+        let mut ok = true;
+        for (i, item) in items.iter().enumerate() {
+            match item.get_ref() {
+                DeValue::String(s) => out.push(s.to_string()),
+                other => {
+                    ok = false;
+                    let found = type_name(other);
+                    self.error(
+                        item.span().start,
+                        &format!("model.command[{}]", i + 1),
+                        format!(
+                            "every word of the command must be text in quotes, {EX}; found {found}"
+                        ),
+                    );
+                }
+            }
+        }
+        if ok && out.first().is_none_or(|p| p.trim().is_empty()) {
+            self.error(at, "model.command", format!("must name a program, {EX}"));
+            return None;
+        }
+        ok.then_some(out)
+    }
+
+    fn fixed(&mut self, v: &Value<'_>) -> Option<BTreeMap<String, serde_json::Value>> {
+        let t = self.table(v, "model.fixed", "[model.fixed]")?;
+        let mut out = BTreeMap::new();
+        let mut ok = true;
+        for (k, val) in t.iter() {
+            let name: &str = k.get_ref();
+            let key = join("model.fixed", name);
+            if !valid_name(name) {
+                self.error(
+                    k.span().start,
+                    &key,
+                    format!("not a valid input name; {NAME_RULE}"),
+                );
+                ok = false;
+                continue;
+            }
+            match self.json(val, &key) {
+                Some(j) => {
+                    out.insert(name.to_string(), j);
+                }
+                None => ok = false,
+            }
+        }
+        ok.then_some(out)
+    }
+
+    fn json(&mut self, v: &Value<'_>, key: &str) -> Option<serde_json::Value> {
+        use serde_json::Value as J;
+        match v.get_ref() {
+            DeValue::String(s) => Some(J::String(s.to_string())),
+            DeValue::Boolean(b) => Some(J::Bool(*b)),
+            DeValue::Integer(_) => match parse_integer(v.get_ref()).flatten() {
+                Some(i) => Some(J::from(i)),
+                None => {
+                    self.error(v.span().start, key, "whole number too large");
+                    None
+                }
+            },
+            DeValue::Float(_) => {
+                let x = self.number(v, key)?;
+                serde_json::Number::from_f64(x).map(J::Number)
+            }
+            DeValue::Datetime(d) => Some(J::String(d.to_string())),
+            DeValue::Array(items) => {
+                let mut out = Vec::new();
+                let mut ok = true;
+                for (i, item) in items.iter().enumerate() {
+                    match self.json(item, &format!("{key}[{}]", i + 1)) {
+                        Some(j) => out.push(j),
+                        None => ok = false,
+                    }
+                }
+                ok.then_some(J::Array(out))
+            }
+            DeValue::Table(t) => {
+                let mut out = serde_json::Map::new();
+                let mut ok = true;
+                for (k, item) in t.iter() {
+                    match self.json(item, &join(key, k.get_ref())) {
+                        Some(j) => {
+                            out.insert(k.get_ref().to_string(), j);
+                        }
+                        None => ok = false,
+                    }
+                }
+                ok.then_some(J::Object(out))
+            }
+        }
+    }
+
+    fn params(
+        &mut self,
+        key_at: usize,
+        v: &Value<'_>,
+        fixed: &BTreeSet<String>,
+    ) -> Option<Vec<ParamSpec>> {
+        let t = self.table(v, "params", "[params.NAME]")?;
+        // The document map is sorted by name; the user's order is the order in the file.
+        let mut entries: Vec<_> = t.iter().collect();
+        entries.sort_by_key(|(k, _)| k.span().start);
+        let mut out = Vec::new();
+        let mut ok = true;
+        for (k, pv) in entries {
+            match self.param(k, pv, fixed) {
+                Some(p) => out.push(p),
+                None => ok = false,
+            }
+        }
+        if ok && out.is_empty() {
+            self.error(
+                key_at,
+                "params",
+                "no parameters to sweep: add at least one [params.NAME] table with range = [low, high]",
+            );
+            return None;
+        }
+        ok.then_some(out)
+    }
+
+    fn param(
+        &mut self,
+        k: &Spanned<std::borrow::Cow<'_, str>>,
+        v: &Value<'_>,
+        fixed: &BTreeSet<String>,
+    ) -> Option<ParamSpec> {
+        let name: &str = k.get_ref();
+        let path = join("params", name);
+        let key_at = k.span().start;
+        let mut ok = true;
+        if !valid_name(name) {
+            self.error(
+                key_at,
+                &path,
+                format!("not a valid parameter name; {NAME_RULE}"),
+            );
+            ok = false;
+        }
+        if fixed.contains(name) {
+            self.error(
+                key_at,
+                &path,
+                format!("`{name}` is also given in [model.fixed]; an input is either swept here or fixed there, not both"),
+            );
+            ok = false;
+        }
+        let t = self.table(v, &path, &format!("[params.{name}]"))?;
+        self.check_keys(t, &path, PARAM_KEYS);
+        let integer = match Self::lookup(t, "integer") {
+            Some((_, v)) => self.boolean(v, &join(&path, "integer")),
+            None => Some(false),
+        };
+        let scale = match Self::lookup(t, "scale") {
+            Some((_, v)) => {
+                let key = join(&path, "scale");
+                match self.string(v, &key, "\"log\"")?.as_str() {
+                    "linear" => Some(Scale::Linear),
+                    "log" => Some(Scale::Log),
+                    other => {
+                        let hint = closest(other, &["linear", "log"])
+                            .map(|c| format!("did you mean \"{c}\"? "))
+                            .unwrap_or_default();
+                        self.error(
+                            v.span().start,
+                            &key,
+                            format!("unknown scale \"{other}\"; {hint}valid: \"linear\" (the default) or \"log\" (for ranges spanning orders of magnitude)"),
+                        );
+                        None
+                    }
+                }
+            }
+            None => Some(Scale::Linear),
+        };
+        let unit = match Self::lookup(t, "unit") {
+            Some((_, v)) => self.string(v, &join(&path, "unit"), "\"um\""),
+            None => Some(String::new()),
+        };
+        let description = match Self::lookup(t, "description") {
+            Some((_, v)) => self.string(v, &join(&path, "description"), "\"mean cell height\""),
+            None => Some(String::new()),
+        };
+        let range = match Self::lookup(t, "range") {
+            Some((_, rv)) => self.range(rv, &join(&path, "range"), integer.unwrap_or(false), scale),
+            None => {
+                self.error(
+                    table_start(v, key_at),
+                    &join(&path, "range"),
+                    "missing: give the lowest and highest value, e.g. range = [20.0, 60.0]",
+                );
+                None
+            }
+        };
+        let (lo, hi) = range?;
+        if !ok {
+            return None;
+        }
+        Some(ParamSpec {
+            name: name.to_string(),
+            lo,
+            hi,
+            scale: scale?,
+            integer: integer?,
+            unit: unit?,
+            description: description?,
+        })
+    }
+
+    fn range(
+        &mut self,
+        v: &Value<'_>,
+        key: &str,
+        integer: bool,
+        scale: Option<Scale>,
+    ) -> Option<(f64, f64)> {
+        let at = v.span().start;
+        let items = match v.get_ref() {
+            DeValue::Array(items) if items.len() == 2 => items,
+            DeValue::Array(items) => {
+                self.error(
+                    at,
+                    key,
+                    format!("expected two numbers [low, high], e.g. range = [20.0, 60.0]; found a list of {}", items.len()),
+                );
+                return None;
+            }
+            other => {
+                let found = type_name(other);
+                self.error(
+                    at,
+                    key,
+                    format!("expected two numbers [low, high], e.g. range = [20.0, 60.0]; found {found}"),
+                );
+                return None;
+            }
+        };
+        let lo = self.number(&items[0], key);
+        let hi = self.number(&items[1], key);
+        let (lo, hi) = (lo?, hi?);
+        let mut ok = true;
+        if lo == hi {
+            self.error(
+                at,
+                key,
+                format!("empty range: low and high are both {}; give low < high, or put a constant input under [model.fixed]", num(lo)),
+            );
+            ok = false;
+        } else if lo > hi {
+            self.error(
+                at,
+                key,
+                format!(
+                    "reversed range: low {} is above high {}; write range = [{}, {}]",
+                    num(lo),
+                    num(hi),
+                    num(hi),
+                    num(lo)
+                ),
+            );
+            ok = false;
+        }
+        if integer {
+            for (x, item) in [(lo, &items[0]), (hi, &items[1])] {
+                if x.fract() != 0.0 {
+                    self.error(
+                        item.span().start,
+                        key,
+                        format!("integer = true needs whole-number bounds; {} is not whole (use e.g. {})", num(x), num(x.round())),
+                    );
+                    ok = false;
+                }
+            }
+        }
+        if scale == Some(Scale::Log) && lo.min(hi) <= 0.0 {
+            self.error(
+                at,
+                key,
+                format!("scale = \"log\" needs a range above zero; {} is not; raise the low end or use scale = \"linear\"", num(lo.min(hi))),
+            );
+            ok = false;
+        }
+        ok.then_some((lo, hi))
+    }
+
+    fn objective(&mut self, key_at: usize, v: &Value<'_>) -> Option<Objective> {
+        let t = self.table(v, "objective", "[objective]")?;
+        self.check_keys(t, "objective", OBJECTIVE_KEYS);
+        let min = Self::lookup(t, "minimize");
+        let max = Self::lookup(t, "maximize");
+        match (min, max) {
+            (Some(_), Some((mk, _))) => {
+                self.error(
+                    mk.span().start,
+                    "objective.maximize",
+                    "give either minimize or maximize, not both (to match observed values, use [[target]] tables instead)",
+                );
+                None
+            }
+            (Some((_, v)), None) => {
+                let metric = self.metric_name(v, "objective.minimize")?;
+                Some(Objective {
+                    metric,
+                    direction: Direction::Minimize,
+                })
+            }
+            (None, Some((_, v))) => {
+                let metric = self.metric_name(v, "objective.maximize")?;
+                Some(Objective {
+                    metric,
+                    direction: Direction::Maximize,
+                })
+            }
+            (None, None) => {
+                self.error(
+                    table_start(v, key_at),
+                    "objective",
+                    "empty: give minimize = \"METRIC\" or maximize = \"METRIC\", or remove [objective] and give [[target]] tables",
+                );
+                None
+            }
+        }
+    }
+
+    fn metric_name(&mut self, v: &Value<'_>, key: &str) -> Option<String> {
+        let s = self.nonempty_string(v, key, "\"territory_cv\"")?;
+        if !valid_name(&s) {
+            self.error(
+                v.span().start,
+                key,
+                format!("\"{s}\" is not a valid metric name; {NAME_RULE}"),
+            );
+            return None;
+        }
+        Some(s)
+    }
+
+    fn metrics(&mut self, v: &Value<'_>, units: &mut BTreeMap<String, String>) -> bool {
+        let Some(t) = self.table(v, "metrics", "[metrics.NAME]") else {
+            return false;
+        };
+        let mut ok = true;
+        for (k, mv) in t.iter() {
+            let name: &str = k.get_ref();
+            let path = join("metrics", name);
+            if !valid_name(name) {
+                self.error(
+                    k.span().start,
+                    &path,
+                    format!("not a valid metric name; {NAME_RULE}"),
+                );
+                ok = false;
+            }
+            let Some(mt) = self.table(mv, &path, &format!("[metrics.{name}]")) else {
+                ok = false;
+                continue;
+            };
+            self.check_keys(mt, &path, METRIC_KEYS);
+            if let Some((_, dv)) = Self::lookup(mt, "description") {
+                ok &= self
+                    .string(dv, &join(&path, "description"), "\"what it measures\"")
+                    .is_some();
+            }
+            if let Some((_, uv)) = Self::lookup(mt, "unit") {
+                match self.string(uv, &join(&path, "unit"), "\"um^3\"") {
+                    Some(u) => {
+                        units.insert(name.to_string(), u);
+                    }
+                    None => ok = false,
+                }
+            }
+        }
+        ok
+    }
+
+    fn targets(
+        &mut self,
+        v: &Value<'_>,
+        units: &mut BTreeMap<String, String>,
+    ) -> Option<Vec<Target>> {
+        let at = v.span().start;
+        let items: Vec<&Value<'_>> = match v.get_ref() {
+            DeValue::Array(items) => items.iter().collect(),
+            other => {
+                let found = type_name(other);
+                self.error(
+                    at,
+                    "target",
+                    format!("expected one [[target]] table (double brackets) per observed metric; found {found}"),
+                );
+                return None;
+            }
+        };
+        let mut out = Vec::new();
+        let mut seen: BTreeMap<String, usize> = BTreeMap::new();
+        let mut ok = true;
+        for (i, item) in items.into_iter().enumerate() {
+            let path = format!("target[{}]", i + 1);
+            let Some(t) = self.table(item, &path, "[[target]]") else {
+                ok = false;
+                continue;
+            };
+            let item_at = item.span().start;
+            self.check_keys(t, &path, TARGET_KEYS);
+            let metric = match Self::lookup(t, "metric") {
+                Some((_, mv)) => {
+                    let m = self.metric_name(mv, &join(&path, "metric"));
+                    if let Some(m) = &m {
+                        if let Some(&first) = seen.get(m) {
+                            let line = self.line_of(first);
+                            self.error(
+                                mv.span().start,
+                                &join(&path, "metric"),
+                                format!("a target for `{m}` is already given on line {line}; give each metric one target"),
+                            );
+                            ok = false;
+                        } else {
+                            seen.insert(m.clone(), mv.span().start);
+                        }
+                    }
+                    m
+                }
+                None => {
+                    self.error(
+                        item_at,
+                        &join(&path, "metric"),
+                        "missing: which metric was observed, e.g. metric = \"coverage\"",
+                    );
+                    None
+                }
+            };
+            let value = match Self::lookup(t, "value") {
+                Some((_, vv)) => self.number(vv, &join(&path, "value")),
+                None => {
+                    self.error(
+                        item_at,
+                        &join(&path, "value"),
+                        "missing: the observed value, e.g. value = 0.82",
+                    );
+                    None
+                }
+            };
+            let sd = match Self::lookup(t, "sd") {
+                Some((_, sv)) => {
+                    let key = join(&path, "sd");
+                    match self.number(sv, &key) {
+                        Some(sd) if sd > 0.0 => Some(sd),
+                        Some(sd) => {
+                            self.error(
+                                sv.span().start,
+                                &key,
+                                format!("must be above zero (the standard deviation of the observation); found {}", num(sd)),
+                            );
+                            None
+                        }
+                        None => None,
+                    }
+                }
+                None => {
+                    self.error(
+                        item_at,
+                        &join(&path, "sd"),
+                        "missing: the standard deviation of the observation, e.g. sd = 0.04",
+                    );
+                    None
+                }
+            };
+            if let Some((_, uv)) = Self::lookup(t, "unit") {
+                let key = join(&path, "unit");
+                match (self.string(uv, &key, "\"um\""), &metric) {
+                    (Some(u), Some(m)) => match units.get(m) {
+                        Some(prev) if *prev != u => {
+                            self.error(
+                                uv.span().start,
+                                &key,
+                                format!("unit \"{u}\" differs from the unit \"{prev}\" given in [metrics.{m}]; give one unit per metric"),
+                            );
+                            ok = false;
+                        }
+                        _ => {
+                            units.insert(m.clone(), u);
+                        }
+                    },
+                    (None, _) => ok = false,
+                    _ => {}
+                }
+            }
+            match (metric, value, sd) {
+                (Some(metric), Some(value), Some(sd)) => out.push(Target { metric, value, sd }),
+                _ => ok = false,
+            }
+        }
+        ok.then_some(out)
+    }
+}
