@@ -1,12 +1,45 @@
-//! The runner for operator-configured external simulators (being written).
+//! The runner for operator-configured external simulators.
+//!
+//! The contract (documented for simulator authors in `docs/simulators.md`):
+//!
+//! - inputs arrive three ways at once: a JSON object on stdin, environment
+//!   variables `TESSERA_PARAM_<NAME>` (name upper-cased, other characters than
+//!   letters, digits and `_` turned into `_`), and `{name}` placeholders in the
+//!   command words; also `{seed}`, `{replicate}`, `{workdir}`, `{metrics}` and
+//!   `TESSERA_SEED`, `TESSERA_REPLICATE`, `TESSERA_WORKDIR`, `TESSERA_METRICS`,
+//!   `TESSERA_MODEL`, `TESSERA_POINT_ID`, `TESSERA_EVALUATION_ID`;
+//! - the simulator reports metrics as a JSON object, either in the file
+//!   `$TESSERA_METRICS` or on the last non-empty line of stdout (the file wins
+//!   when it exists);
+//! - each run starts in a fresh working directory `eval-<id>-XXXX` under the
+//!   configured root, removed afterwards unless the operator keeps them;
+//! - the command runs in its own process group; on timeout or cancel the
+//!   whole group is killed, and when the command exits anything it left
+//!   running in its group is killed too.
 
-use std::path::PathBuf;
+use std::collections::BTreeMap;
+use std::io::ErrorKind;
+use std::os::unix::process::ExitStatusExt;
+use std::path::{Path, PathBuf};
+use std::process::{ExitStatus, Stdio};
+use std::time::Duration;
 
+use serde_json::Value;
+use tokio::io::{AsyncRead, AsyncReadExt, AsyncWriteExt};
+use tokio::task::JoinHandle;
 use tokio_util::sync::CancellationToken;
 
-use crate::runner::{FailureKind, Metrics, RunFailure, RunRequest};
+use crate::runner::{format_duration, FailureKind, Metrics, RunFailure, RunRequest};
 
-/// One operator-configured command.
+/// How much of the end of stderr a failure carries.
+pub const STDERR_TAIL_BYTES: usize = 4096;
+/// How much of the end of stdout is kept to find the metrics line.
+const STDOUT_TAIL_BYTES: usize = 1 << 20;
+/// How long to wait for stdout/stderr to close once the process group is gone
+/// (a process that left the group with `setsid` could hold them open).
+const PIPE_GRACE: Duration = Duration::from_secs(5);
+
+/// One operator-configured command serving one model name.
 #[derive(Clone, Debug)]
 pub struct ExternalCommand {
     name: String,
@@ -15,8 +48,37 @@ pub struct ExternalCommand {
     keep_workdirs: bool,
 }
 
+/// Kills a process group when dropped (the run future was dropped, or the
+/// run ended), so no simulator outlives its run.
+struct GroupKill {
+    pgid: Option<rustix::process::Pid>,
+}
+
+impl GroupKill {
+    fn kill(&mut self) {
+        if let Some(pid) = self.pgid.take() {
+            // ESRCH (nothing left in the group) is the normal case after a
+            // clean exit.
+            let _ = rustix::process::kill_process_group(pid, rustix::process::Signal::KILL);
+        }
+    }
+}
+
+impl Drop for GroupKill {
+    fn drop(&mut self) {
+        self.kill();
+    }
+}
+
+/// How the wait for the process ended.
+enum Ending {
+    Exited(ExitStatus),
+    TimedOut(Duration),
+    Cancelled,
+}
+
 impl ExternalCommand {
-    /// A command serving model `name`.
+    /// A command serving model `name`; `words[0]` is the program.
     pub fn new(
         name: String,
         words: Vec<String>,
@@ -31,21 +93,575 @@ impl ExternalCommand {
         }
     }
 
-    /// Runs the command once for `req`.
+    /// The model name this command serves.
+    pub fn name(&self) -> &str {
+        &self.name
+    }
+
+    /// The command words, before placeholders are filled in.
+    pub fn words(&self) -> &[String] {
+        &self.words
+    }
+
+    /// Runs the command once for `req`; see the module docs for the contract.
     pub async fn run(
         &self,
-        _req: &RunRequest,
-        _cancel: &CancellationToken,
+        req: &RunRequest,
+        cancel: &CancellationToken,
     ) -> Result<Metrics, RunFailure> {
-        let _ = (
-            &self.name,
-            &self.words,
-            &self.workdir_root,
-            self.keep_workdirs,
-        );
-        Err(RunFailure::new(
-            FailureKind::Spawn,
-            "external commands are not supported yet",
-        ))
+        let inputs = merged_inputs(req)?;
+        if self.words.is_empty() {
+            return Err(RunFailure::new(
+                FailureKind::Spawn,
+                format!("command for model {:?} is empty", self.name),
+            ));
+        }
+        std::fs::create_dir_all(&self.workdir_root).map_err(|e| {
+            RunFailure::new(
+                FailureKind::Spawn,
+                format!(
+                    "cannot create the run directory root {}: {e}",
+                    self.workdir_root.display()
+                ),
+            )
+        })?;
+        let dir = tempfile::Builder::new()
+            .prefix(&format!("eval-{}-", req.evaluation_id))
+            .tempdir_in(&self.workdir_root)
+            .map_err(|e| {
+                RunFailure::new(
+                    FailureKind::Spawn,
+                    format!(
+                        "cannot create a run directory under {}: {e}",
+                        self.workdir_root.display()
+                    ),
+                )
+            })?;
+        let result = self.run_in(req, &inputs, dir.path(), cancel).await;
+        if self.keep_workdirs {
+            let kept = dir.keep();
+            tracing::info!(model = %self.name, dir = %kept.display(), "kept run directory");
+        } else if let Err(e) = dir.close() {
+            tracing::warn!(model = %self.name, error = %e, "could not remove run directory");
+        }
+        result
+    }
+
+    async fn run_in(
+        &self,
+        req: &RunRequest,
+        inputs: &BTreeMap<String, Value>,
+        workdir: &Path,
+        cancel: &CancellationToken,
+    ) -> Result<Metrics, RunFailure> {
+        let metrics_path = workdir.join("metrics.json");
+        let mut fields: BTreeMap<String, String> = inputs
+            .iter()
+            .map(|(k, v)| (k.clone(), value_text(v)))
+            .collect();
+        fields.insert("seed".into(), req.seed.to_string());
+        fields.insert("replicate".into(), req.replicate.to_string());
+        fields.insert("workdir".into(), workdir.display().to_string());
+        fields.insert("metrics".into(), metrics_path.display().to_string());
+        let words: Vec<String> = self.words.iter().map(|w| fill(w, &fields)).collect();
+
+        let mut cmd = tokio::process::Command::new(&words[0]);
+        cmd.args(&words[1..])
+            .current_dir(workdir)
+            .stdin(Stdio::piped())
+            .stdout(Stdio::piped())
+            .stderr(Stdio::piped())
+            .process_group(0)
+            .kill_on_drop(true)
+            .env("TESSERA_MODEL", &req.model)
+            .env("TESSERA_SEED", req.seed.to_string())
+            .env("TESSERA_REPLICATE", req.replicate.to_string())
+            .env("TESSERA_POINT_ID", req.point_id.to_string())
+            .env("TESSERA_EVALUATION_ID", req.evaluation_id.to_string())
+            .env("TESSERA_WORKDIR", workdir)
+            .env("TESSERA_METRICS", &metrics_path);
+        for (k, v) in inputs {
+            cmd.env(env_name(k), value_text(v));
+        }
+        let stdin_json = serde_json::json!({
+            "model": req.model,
+            "inputs": inputs,
+            "seed": req.seed,
+            "replicate": req.replicate,
+            "point_id": req.point_id,
+            "evaluation_id": req.evaluation_id,
+            "workdir": workdir.display().to_string(),
+            "metrics_file": metrics_path.display().to_string(),
+        });
+
+        let mut child = cmd.spawn().map_err(|e| spawn_failure(&words[0], &e))?;
+        let mut group = GroupKill {
+            pgid: child
+                .id()
+                .and_then(|id| i32::try_from(id).ok())
+                .and_then(rustix::process::Pid::from_raw),
+        };
+
+        // Feeds the JSON inputs to stdin and closes it; ends when written or
+        // when the simulator closes its stdin (a broken pipe is not an error:
+        // many simulators never read stdin).
+        let stdin_task: Option<JoinHandle<()>> = child.stdin.take().map(|mut stdin| {
+            let mut bytes = stdin_json.to_string().into_bytes();
+            bytes.push(b'\n');
+            tokio::spawn(async move {
+                let _ = stdin.write_all(&bytes).await;
+                let _ = stdin.shutdown().await;
+            })
+        });
+        // Drain stdout and stderr concurrently so a chatty simulator never
+        // blocks on a full pipe; each ends at end-of-file.
+        let stdout_task = child
+            .stdout
+            .take()
+            .map(|s| tokio::spawn(read_tail(s, STDOUT_TAIL_BYTES)));
+        let stderr_task = child
+            .stderr
+            .take()
+            .map(|s| tokio::spawn(read_tail(s, STDERR_TAIL_BYTES)));
+
+        let timeout = async {
+            match req.timeout {
+                Some(t) => {
+                    tokio::time::sleep(t).await;
+                    t
+                }
+                None => std::future::pending().await,
+            }
+        };
+        let ending = tokio::select! {
+            status = child.wait() => match status {
+                Ok(s) => Ending::Exited(s),
+                Err(e) => {
+                    group.kill();
+                    return Err(RunFailure::new(FailureKind::Exit, format!("lost track of the simulator process: {e}")));
+                }
+            },
+            t = timeout => Ending::TimedOut(t),
+            () = cancel.cancelled() => Ending::Cancelled,
+        };
+        // Whatever happened, nothing of this run may keep running.
+        group.kill();
+        if !matches!(ending, Ending::Exited(_)) {
+            // The group kill covers the child; this covers a failed group kill.
+            let _ = child.start_kill();
+            let _ = child.wait().await;
+        }
+        if let Some(t) = stdin_task {
+            t.abort();
+        }
+        let stdout = collect(stdout_task).await;
+        let stderr_bytes = collect(stderr_task).await;
+        let stderr_tail = tail_text(&stderr_bytes, STDERR_TAIL_BYTES);
+        let fail = |kind, reason: String| RunFailure {
+            kind,
+            reason,
+            stderr_tail: stderr_tail.clone(),
+        };
+
+        let status = match ending {
+            Ending::TimedOut(t) => {
+                return Err(fail(
+                    FailureKind::Timeout,
+                    format!(
+                        "{:?} did not finish within {}; its process group was killed",
+                        self.name,
+                        format_duration(t)
+                    ),
+                ))
+            }
+            Ending::Cancelled => {
+                return Err(fail(
+                    FailureKind::Cancelled,
+                    format!(
+                        "run of {:?} was cancelled; its process group was killed",
+                        self.name
+                    ),
+                ))
+            }
+            Ending::Exited(s) => s,
+        };
+        if !status.success() {
+            return Err(fail(FailureKind::Exit, describe_exit(&words[0], status)));
+        }
+        let (source, text) = match std::fs::read_to_string(&metrics_path) {
+            Ok(t) => (format!("metrics file {}", metrics_path.display()), t),
+            Err(e) if e.kind() == ErrorKind::NotFound => {
+                let out = String::from_utf8_lossy(&stdout);
+                match out.lines().rev().find(|l| !l.trim().is_empty()) {
+                    Some(line) => ("last line of stdout".to_string(), line.to_string()),
+                    None => {
+                        return Err(fail(
+                            FailureKind::NoMetrics,
+                            format!(
+                                "{:?} exited normally but printed nothing on stdout and wrote no metrics file; \
+                                 print a JSON object such as {{\"score\": 1.5}} as the last line",
+                                self.name
+                            ),
+                        ))
+                    }
+                }
+            }
+            Err(e) => {
+                return Err(fail(
+                    FailureKind::NoMetrics,
+                    format!("cannot read metrics file {}: {e}", metrics_path.display()),
+                ))
+            }
+        };
+        parse_metrics(&text).map_err(|(kind, why)| fail(kind, format!("{source}: {why}")))
+    }
+}
+
+/// Params and fixed inputs in one map; a name in both is a bad input.
+fn merged_inputs(req: &RunRequest) -> Result<BTreeMap<String, Value>, RunFailure> {
+    let mut inputs: BTreeMap<String, Value> = BTreeMap::new();
+    for (k, v) in &req.params {
+        let value = serde_json::Number::from_f64(*v)
+            .map(Value::Number)
+            .ok_or_else(|| {
+                RunFailure::new(
+                    FailureKind::BadInput,
+                    format!("parameter {k:?} is {v}, not a finite number"),
+                )
+            })?;
+        inputs.insert(k.clone(), value);
+    }
+    for (k, v) in &req.fixed {
+        if inputs.insert(k.clone(), v.clone()).is_some() {
+            return Err(RunFailure::new(
+                FailureKind::BadInput,
+                format!("input {k:?} is given both as a swept parameter and as a fixed input"),
+            ));
+        }
+    }
+    Ok(inputs)
+}
+
+/// `TESSERA_PARAM_` + the name upper-cased, other characters than ASCII
+/// letters, digits and `_` replaced by `_`.
+pub fn env_name(name: &str) -> String {
+    let tail: String = name
+        .chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || c == '_' {
+                c.to_ascii_uppercase()
+            } else {
+                '_'
+            }
+        })
+        .collect();
+    format!("TESSERA_PARAM_{tail}")
+}
+
+/// How a value is written into an environment variable or a command word:
+/// numbers in plain or exponent notation that every language parses, strings
+/// as they are, anything else as JSON text.
+fn value_text(v: &Value) -> String {
+    match v {
+        Value::String(s) => s.clone(),
+        Value::Number(n) => match n.as_f64() {
+            Some(x) if n.is_f64() => format_number(x),
+            _ => n.to_string(),
+        },
+        other => other.to_string(),
+    }
+}
+
+/// Shortest round-trip decimal; exponent notation for very large or small.
+pub fn format_number(x: f64) -> String {
+    let a = x.abs();
+    if a == 0.0 || (1e-6..1e15).contains(&a) {
+        format!("{x}")
+    } else {
+        format!("{x:e}")
+    }
+}
+
+/// Replaces `{key}` by its value for every known key; other braces stay.
+fn fill(word: &str, fields: &BTreeMap<String, String>) -> String {
+    let mut out = String::with_capacity(word.len());
+    let mut rest = word;
+    while let Some(open) = rest.find('{') {
+        out.push_str(&rest[..open]);
+        let after = &rest[open + 1..];
+        match after.find('}') {
+            Some(close) if fields.contains_key(&after[..close]) => {
+                out.push_str(&fields[&after[..close]]);
+                rest = &after[close + 1..];
+            }
+            _ => {
+                out.push('{');
+                rest = after;
+            }
+        }
+    }
+    out.push_str(rest);
+    out
+}
+
+fn spawn_failure(program: &str, e: &std::io::Error) -> RunFailure {
+    let reason = match e.kind() {
+        ErrorKind::NotFound => format!(
+            "command not found: {program:?} (not on PATH and not an existing file; give the full path)"
+        ),
+        ErrorKind::PermissionDenied => {
+            format!("cannot start {program:?}: permission denied (is it executable? chmod +x)")
+        }
+        _ => format!("cannot start {program:?}: {e}"),
+    };
+    RunFailure::new(FailureKind::Spawn, reason)
+}
+
+fn describe_exit(program: &str, status: ExitStatus) -> String {
+    if let Some(code) = status.code() {
+        format!("{program:?} exited with code {code}")
+    } else if let Some(sig) = status.signal() {
+        format!(
+            "{program:?} was killed by signal {sig}{}",
+            signal_name(sig)
+                .map(|n| format!(" ({n})"))
+                .unwrap_or_default()
+        )
+    } else {
+        format!("{program:?} ended abnormally: {status}")
+    }
+}
+
+fn signal_name(sig: i32) -> Option<&'static str> {
+    Some(match sig {
+        1 => "SIGHUP",
+        2 => "SIGINT",
+        3 => "SIGQUIT",
+        4 => "SIGILL",
+        6 => "SIGABRT",
+        7 => "SIGBUS",
+        8 => "SIGFPE",
+        9 => "SIGKILL",
+        11 => "SIGSEGV",
+        13 => "SIGPIPE",
+        14 => "SIGALRM",
+        15 => "SIGTERM",
+        _ => return None,
+    })
+}
+
+/// Reads `r` to its end, keeping only the last `cap` bytes.
+async fn read_tail<R: AsyncRead + Unpin>(mut r: R, cap: usize) -> Vec<u8> {
+    let mut buf = Vec::new();
+    let mut chunk = vec![0u8; 8192];
+    loop {
+        match r.read(&mut chunk).await {
+            Ok(0) | Err(_) => break,
+            Ok(n) => {
+                buf.extend_from_slice(&chunk[..n]);
+                if buf.len() > 2 * cap {
+                    buf.drain(..buf.len() - cap);
+                }
+            }
+        }
+    }
+    if buf.len() > cap {
+        buf.drain(..buf.len() - cap);
+    }
+    buf
+}
+
+/// The bytes a reader task collected; empty if it did not finish in time.
+async fn collect(task: Option<JoinHandle<Vec<u8>>>) -> Vec<u8> {
+    let Some(mut task) = task else {
+        return Vec::new();
+    };
+    match tokio::time::timeout(PIPE_GRACE, &mut task).await {
+        Ok(Ok(bytes)) => bytes,
+        Ok(Err(_)) => Vec::new(),
+        Err(_) => {
+            task.abort();
+            Vec::new()
+        }
+    }
+}
+
+/// The last `cap` bytes as text, cut at a character boundary.
+fn tail_text(bytes: &[u8], cap: usize) -> String {
+    let start = bytes.len().saturating_sub(cap);
+    let text = String::from_utf8_lossy(&bytes[start..]);
+    // A cut through a multi-byte character shows as U+FFFD at the start.
+    text.trim_start_matches('\u{FFFD}').to_string()
+}
+
+/// Parses a metrics object: every value must be a finite number. `NaN`,
+/// `Infinity` and `-Infinity` (which Python's `json` writes although JSON has
+/// no such tokens) and `null` are reported as non-finite.
+pub fn parse_metrics(text: &str) -> Result<Metrics, (FailureKind, String)> {
+    let cleaned = non_finite_to_null(text.trim());
+    let value: Value = serde_json::from_str(&cleaned).map_err(|e| {
+        (
+            FailureKind::NoMetrics,
+            format!("not a JSON object ({e}): {:?}", shorten(text.trim(), 200)),
+        )
+    })?;
+    let Value::Object(map) = value else {
+        return Err((
+            FailureKind::NoMetrics,
+            format!(
+                "not a JSON object of metrics: {:?}",
+                shorten(text.trim(), 200)
+            ),
+        ));
+    };
+    let mut metrics = Metrics::new();
+    for (k, v) in map {
+        match v {
+            Value::Number(n) => match n.as_f64() {
+                Some(x) if x.is_finite() => {
+                    metrics.insert(k, x);
+                }
+                _ => {
+                    return Err((
+                        FailureKind::NonFinite,
+                        format!("metric {k:?} is {n}, not a finite number"),
+                    ))
+                }
+            },
+            Value::Null => {
+                return Err((
+                    FailureKind::NonFinite,
+                    format!("metric {k:?} is NaN, Infinity or null, not a finite number"),
+                ))
+            }
+            other => {
+                return Err((
+                    FailureKind::NoMetrics,
+                    format!("metric {k:?} is {other}; metrics must be numbers"),
+                ))
+            }
+        }
+    }
+    Ok(metrics)
+}
+
+/// Replaces the bare tokens `NaN`, `Infinity`, `-Infinity` outside string
+/// literals by `null`. Hand-written: serde_json rejects these tokens and no
+/// maintained crate accepts exactly this extension.
+fn non_finite_to_null(text: &str) -> String {
+    let mut out = String::with_capacity(text.len());
+    let mut in_string = false;
+    let mut escaped = false;
+    let mut i = 0;
+    let bytes = text.as_bytes();
+    while i < bytes.len() {
+        let c = bytes[i];
+        if in_string {
+            if escaped {
+                escaped = false;
+            } else if c == b'\\' {
+                escaped = true;
+            } else if c == b'"' {
+                in_string = false;
+            }
+        } else if c == b'"' {
+            in_string = true;
+        } else {
+            let rest = &text[i..];
+            let token = ["-Infinity", "Infinity", "NaN"]
+                .into_iter()
+                .find(|t| rest.starts_with(t));
+            if let Some(t) = token {
+                out.push_str("null");
+                i += t.len();
+                continue;
+            }
+        }
+        // Copy one whole character (the text is valid UTF-8).
+        let len = utf8_len(c);
+        out.push_str(&text[i..i + len]);
+        i += len;
+    }
+    out
+}
+
+fn utf8_len(first: u8) -> usize {
+    match first {
+        0x00..=0x7F => 1,
+        0xC0..=0xDF => 2,
+        0xE0..=0xEF => 3,
+        _ => 4,
+    }
+}
+
+fn shorten(s: &str, max: usize) -> String {
+    if s.len() <= max {
+        return s.to_string();
+    }
+    let mut end = max;
+    while !s.is_char_boundary(end) {
+        end -= 1;
+    }
+    format!("{}...", &s[..end])
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn placeholders_fill_known_keys_only() {
+        let mut f = BTreeMap::new();
+        f.insert("seed".to_string(), "7".to_string());
+        f.insert("x1".to_string(), "0.5".to_string());
+        assert_eq!(fill("--seed={seed}", &f), "--seed=7");
+        assert_eq!(fill("{x1}{x1}", &f), "0.50.5");
+        assert_eq!(fill("awk '{print $1}' {x2}", &f), "awk '{print $1}' {x2}");
+        assert_eq!(fill("{", &f), "{");
+        assert_eq!(fill("a{{seed}}", &f), "a{7}");
+    }
+
+    #[test]
+    fn env_names_are_upper_case_and_safe() {
+        assert_eq!(env_name("height_sd"), "TESSERA_PARAM_HEIGHT_SD");
+        assert_eq!(env_name("k.on-rate"), "TESSERA_PARAM_K_ON_RATE");
+    }
+
+    #[test]
+    fn numbers_are_written_so_any_language_parses_them() {
+        assert_eq!(format_number(0.5), "0.5");
+        assert_eq!(format_number(3.0), "3");
+        assert_eq!(format_number(-2.25e-9), "-2.25e-9");
+        assert_eq!(format_number(1e300), "1e300");
+        for x in [0.1, 1.0 / 3.0, 6.02e23, -1e-12] {
+            assert_eq!(format_number(x).parse::<f64>().ok(), Some(x));
+        }
+    }
+
+    #[test]
+    fn metrics_parse_numbers_and_flag_the_rest() {
+        let m = parse_metrics(r#"{"a": 1, "b": -2.5e3}"#).expect("valid");
+        assert_eq!(m["a"], 1.0);
+        assert_eq!(m["b"], -2500.0);
+        // Python's json.dumps(float('nan')) writes NaN.
+        let e = parse_metrics(r#"{"a": NaN, "s": "NaN"}"#).expect_err("NaN");
+        assert_eq!(e.0, FailureKind::NonFinite);
+        let e = parse_metrics(r#"{"a": -Infinity}"#).expect_err("inf");
+        assert_eq!(e.0, FailureKind::NonFinite);
+        let e = parse_metrics(r#"{"a": "x"}"#).expect_err("string");
+        assert_eq!(e.0, FailureKind::NoMetrics);
+        let e = parse_metrics("done").expect_err("not json");
+        assert_eq!(e.0, FailureKind::NoMetrics);
+        let e = parse_metrics("[1, 2]").expect_err("array");
+        assert_eq!(e.0, FailureKind::NoMetrics);
+    }
+
+    #[test]
+    fn stderr_tail_is_cut_at_a_character_boundary() {
+        let s = "é".repeat(3000); // 6000 bytes
+        let t = tail_text(s.as_bytes(), STDERR_TAIL_BYTES);
+        assert!(t.len() <= STDERR_TAIL_BYTES);
+        assert!(t.chars().all(|c| c == 'é'));
+        assert_eq!(t.len(), STDERR_TAIL_BYTES);
     }
 }
