@@ -1,0 +1,393 @@
+//! The engine: one running sweep, tying the scheduler, the store thread and
+//! the planner together. The gRPC service ([`crate::service`]) is a thin
+//! layer over it, and `tessera run` uses the same engine through the same
+//! gRPC service.
+
+use crate::committer::{CommitError, StoreHandle};
+use crate::planner;
+use crate::scheduler::{
+    unix_ms, Decided, Grant, JoinInfo, LeaseTimes, Report, ReportOutcome, ScheduleError,
+    Scheduler,
+};
+use crate::spec::{self, Spec};
+use crate::status::SweepStatus;
+use crate::store::{NewPoint, Outcome, OutcomeResult, PointOrigin, Store, StoreError};
+use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::{Arc, Mutex, MutexGuard};
+use std::time::{Duration, Instant};
+use tokio::sync::Notify;
+use tokio_util::sync::CancellationToken;
+
+/// Why a sweep could not be opened.
+#[derive(Debug, thiserror::Error)]
+pub enum OpenError {
+    /// The sweep file is invalid.
+    #[error("{0}")]
+    Spec(#[from] spec::SpecErrors),
+    /// The database could not be opened or written.
+    #[error("{0}")]
+    Store(#[from] StoreError),
+    /// The database holds a different sweep.
+    #[error(
+        "{db} already holds sweep {stored_name:?}, written from a different sweep file than {file}.\n\
+         The sweep stored in the database is the one that continues. To resume it anyway, add --force;\n\
+         to start a new sweep from {file}, give another --db file."
+    )]
+    DifferentSpec {
+        /// Database path.
+        db: String,
+        /// Sweep file given now.
+        file: String,
+        /// Name of the stored sweep.
+        stored_name: String,
+    },
+    /// The stored spec no longer parses (written by another version).
+    #[error("the sweep file stored in {db} is no longer valid for this version of tessera:\n{errors}")]
+    StoredSpec {
+        /// Database path.
+        db: String,
+        /// The errors.
+        errors: spec::SpecErrors,
+    },
+    /// The store thread could not start.
+    #[error("cannot start the store thread: {0}")]
+    Thread(#[from] std::io::Error),
+}
+
+/// A failure while serving a request.
+#[derive(Debug, thiserror::Error)]
+pub enum EngineError {
+    /// The scheduler refused.
+    #[error(transparent)]
+    Schedule(#[from] ScheduleError),
+    /// The store failed.
+    #[error(transparent)]
+    Commit(#[from] CommitError),
+}
+
+/// How a sweep is opened.
+#[derive(Clone, Debug)]
+pub struct OpenOptions {
+    /// The sweep database.
+    pub db: PathBuf,
+    /// The sweep file's text and its name (for messages).
+    pub spec_text: String,
+    /// File name of the sweep file.
+    pub spec_file: String,
+    /// Resume even if the stored sweep file differs from `spec_text`.
+    pub force: bool,
+    /// Lease timing.
+    pub times: LeaseTimes,
+}
+
+/// A running sweep.
+pub struct Engine {
+    /// Live state. Locked briefly by each request; never held across an await.
+    sched: Mutex<Scheduler>,
+    store: StoreHandle,
+    fixed_json: String,
+    timeout_ms: u64,
+    expected_metrics: Vec<String>,
+    /// Wakes the planner task when results arrive or the queue drains.
+    plan_wake: Notify,
+    /// Set on shutdown: no new leases are handed out.
+    draining: AtomicBool,
+    db: PathBuf,
+    spec_text: String,
+}
+
+impl std::fmt::Debug for Engine {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Engine").field("db", &self.db).finish()
+    }
+}
+
+/// Locks a mutex, recovering the data if a thread panicked while holding it
+/// (the scheduler's state stays consistent between calls).
+fn lock<T>(m: &Mutex<T>) -> MutexGuard<'_, T> {
+    m.lock().unwrap_or_else(|p| p.into_inner())
+}
+
+impl Engine {
+    /// Opens (or creates) the sweep in `opts.db` and rebuilds its state.
+    /// A new sweep gets its initial Latin-hypercube design stored before any
+    /// lease is handed out.
+    pub fn open(opts: OpenOptions) -> Result<Arc<Engine>, OpenError> {
+        let given = spec::parse(&opts.spec_text, &opts.spec_file)?;
+        let mut store = Store::open(&opts.db)?;
+        let db_name = opts.db.display().to_string();
+        let (sweep, spec_text, spec) = match store.sweep()? {
+            Some(sw) => {
+                if sw.spec_text != opts.spec_text {
+                    if !opts.force {
+                        return Err(OpenError::DifferentSpec {
+                            db: db_name,
+                            file: opts.spec_file.clone(),
+                            stored_name: sw.name.clone(),
+                        });
+                    }
+                    tracing::warn!(db = %db_name, "the sweep file differs from the stored one; resuming the stored sweep (--force)");
+                }
+                let stored = spec::parse(&sw.spec_text, &sw.spec_file).map_err(|errors| {
+                    OpenError::StoredSpec {
+                        db: db_name.clone(),
+                        errors,
+                    }
+                })?;
+                let text = sw.spec_text.clone();
+                (sw, text, stored)
+            }
+            None => {
+                let sw = store.create_sweep(
+                    &given.name,
+                    &opts.spec_text,
+                    &opts.spec_file,
+                    given.seed,
+                )?;
+                (sw, opts.spec_text.clone(), given)
+            }
+        };
+        if store.points(sweep.id)?.is_empty() {
+            let design: Vec<NewPoint> = spec
+                .initial_design()
+                .into_iter()
+                .map(|values| NewPoint {
+                    values,
+                    origin: PointOrigin::Design,
+                    batch: 0,
+                })
+                .collect();
+            store.insert_points(sweep.id, &design, spec.replicates.max(1), spec.seed)?;
+            tracing::info!(points = design.len(), "stored the initial design");
+        }
+        let points = store.points(sweep.id)?;
+        let evaluations = store.evaluations(sweep.id)?;
+        let nonce = format!("{:x}", unix_ms() ^ (u64::from(std::process::id()) << 40));
+        let fixed_json =
+            serde_json::to_string(&spec.model.fixed).unwrap_or_else(|_| "{}".to_string());
+        let timeout_ms = spec.model.timeout.as_millis() as u64;
+        let expected_metrics = spec.metrics_needed();
+        let replicates = spec.replicates.max(1);
+        let seed = spec.seed;
+        let sched = Scheduler::new(spec, opts.times, nonce, &points, &evaluations);
+        let (store, _join) = StoreHandle::spawn(store, sweep.id, replicates, seed)?;
+        Ok(Arc::new(Engine {
+            sched: Mutex::new(sched),
+            store,
+            fixed_json,
+            timeout_ms,
+            expected_metrics,
+            plan_wake: Notify::new(),
+            draining: AtomicBool::new(false),
+            db: opts.db,
+            spec_text,
+        }))
+    }
+
+    /// The sweep being run.
+    pub fn spec(&self) -> Spec {
+        lock(&self.sched).spec().clone()
+    }
+
+    /// The sweep file text stored in the database.
+    pub fn spec_text(&self) -> &str {
+        &self.spec_text
+    }
+
+    /// The database path.
+    pub fn db(&self) -> &Path {
+        &self.db
+    }
+
+    /// Lease timing.
+    pub fn times(&self) -> LeaseTimes {
+        lock(&self.sched).times()
+    }
+
+    /// Fixed inputs as a JSON object.
+    pub fn fixed_json(&self) -> &str {
+        &self.fixed_json
+    }
+
+    /// Per-run timeout in milliseconds.
+    pub fn timeout_ms(&self) -> u64 {
+        self.timeout_ms
+    }
+
+    /// Metrics every run must report.
+    pub fn expected_metrics(&self) -> &[String] {
+        &self.expected_metrics
+    }
+
+    /// The store thread, for queries that must see committed data.
+    pub fn store(&self) -> &StoreHandle {
+        &self.store
+    }
+
+    /// Registers a worker.
+    pub fn join(&self, info: JoinInfo) -> Result<String, EngineError> {
+        Ok(lock(&self.sched).join(info, Instant::now())?)
+    }
+
+    /// Leases up to `free` evaluations; `finished` is true when the sweep is done.
+    pub fn request_work(&self, worker_id: &str, free: u32) -> Result<(Vec<Grant>, bool), EngineError> {
+        let mut s = lock(&self.sched);
+        if self.draining.load(Ordering::SeqCst) {
+            s.renew(worker_id, &[], Instant::now())?;
+            return Ok((Vec::new(), false));
+        }
+        let grants = s.request_work(worker_id, free, Instant::now())?;
+        let finished = s.finished();
+        if grants.len() < free as usize && s.wants_plan().is_some() {
+            self.plan_wake.notify_one();
+        }
+        Ok((grants, finished))
+    }
+
+    /// Renews leases; returns those the worker lost.
+    pub fn renew(&self, worker_id: &str, lease_ids: &[String]) -> Result<Vec<String>, EngineError> {
+        Ok(lock(&self.sched).renew(worker_id, lease_ids, Instant::now())?)
+    }
+
+    /// Hands leases back.
+    pub fn hand_back(&self, worker_id: &str, lease_ids: &[String]) -> Result<(), EngineError> {
+        Ok(lock(&self.sched).hand_back(worker_id, lease_ids, Instant::now())?)
+    }
+
+    /// A worker leaves.
+    pub fn leave(&self, worker_id: &str) -> Result<(), EngineError> {
+        Ok(lock(&self.sched).leave(worker_id, Instant::now())?)
+    }
+
+    /// Commits results and returns the evaluation ids that are now durable.
+    ///
+    /// Reports from a worker id the coordinator does not know (it joined
+    /// before a restart) are accepted too: results are keyed by evaluation,
+    /// and the first result for an evaluation wins.
+    pub async fn report(&self, worker_id: &str, worker_name: &str, reports: Vec<Report>) -> Result<Vec<i64>, EngineError> {
+        let decided: Vec<Decided> = lock(&self.sched).decide(reports);
+        let outcomes: Vec<Outcome> = decided
+            .iter()
+            .map(|d| Outcome {
+                evaluation_id: d.report.evaluation_id,
+                worker: worker_name.to_string(),
+                started_unix_ms: d.report.started_unix_ms,
+                ended_unix_ms: d.report.ended_unix_ms,
+                result: match &d.report.outcome {
+                    ReportOutcome::Metrics(m) => OutcomeResult::Done(m.clone()),
+                    ReportOutcome::Failure {
+                        kind,
+                        reason,
+                        stderr_tail,
+                    } => OutcomeResult::Failed {
+                        kind: kind.clone(),
+                        reason: reason.clone(),
+                        stderr_tail: stderr_tail.clone(),
+                        final_attempt: d.final_attempt,
+                    },
+                },
+            })
+            .collect();
+        let committed = self.store.commit(outcomes).await?;
+        let acked = lock(&self.sched).apply_committed(worker_id, &decided, &committed, Instant::now());
+        self.plan_wake.notify_one();
+        Ok(acked)
+    }
+
+    /// A status snapshot.
+    pub fn status(&self) -> SweepStatus {
+        lock(&self.sched).status(Instant::now())
+    }
+
+    /// True when every evaluation of the budget is final.
+    pub fn finished(&self) -> bool {
+        lock(&self.sched).finished()
+    }
+
+    /// Stops handing out leases (shutdown has begun).
+    pub fn drain(&self) {
+        self.draining.store(true, Ordering::SeqCst);
+    }
+
+    /// Runs the planner and lease-expiry loop until `stop` is cancelled.
+    pub async fn run_planner(self: Arc<Self>, stop: CancellationToken) {
+        let mut tick = tokio::time::interval(Duration::from_millis(500));
+        tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+        loop {
+            tokio::select! {
+                _ = stop.cancelled() => break,
+                _ = tick.tick() => {}
+                _ = self.plan_wake.notified() => {}
+            }
+            let job = {
+                let mut s = lock(&self.sched);
+                s.expire(Instant::now());
+                match s.wants_plan() {
+                    Some(q) if !self.draining.load(Ordering::SeqCst) => {
+                        s.set_planning(true);
+                        Some((
+                            s.spec().clone(),
+                            s.point_results(),
+                            s.unfinished_points(),
+                            q,
+                            s.point_count() as u64,
+                        ))
+                    }
+                    _ => None,
+                }
+            };
+            let Some((spec, results, unfinished, q, count)) = job else {
+                continue;
+            };
+            let seed = spec.seed ^ count.wrapping_mul(0x9E37_79B9_7F4A_7C15);
+            let origin = match spec.strategy {
+                spec::Strategy::Improve => PointOrigin::Improve,
+                spec::Strategy::Explore => PointOrigin::Explore,
+            };
+            let planned = tokio::task::spawn_blocking(move || {
+                planner::propose(&spec, &results, &unfinished, q, seed)
+            })
+            .await;
+            let values = match planned {
+                Ok(v) => v,
+                Err(e) => {
+                    tracing::error!(error = %e, "planner task failed");
+                    lock(&self.sched).set_planning(false);
+                    continue;
+                }
+            };
+            let batch = (count as u32).max(1);
+            let new: Vec<NewPoint> = values
+                .into_iter()
+                .map(|values| NewPoint {
+                    values,
+                    origin,
+                    batch,
+                })
+                .collect();
+            let n = new.len();
+            match self.store.insert_points(new).await {
+                Ok((points, evals)) => {
+                    let mut s = lock(&self.sched);
+                    s.add_points(&points);
+                    for e in &evals {
+                        s.add_evaluation(e);
+                    }
+                    s.set_planning(false);
+                    tracing::info!(points = n, "proposed new points");
+                }
+                Err(e) => {
+                    tracing::error!(error = %e, "storing proposed points failed");
+                    lock(&self.sched).set_planning(false);
+                }
+            }
+        }
+    }
+
+    /// Waits until the store thread has finished every request sent before
+    /// this call (used at shutdown: nothing is left half-written).
+    pub async fn flush(&self) {
+        let _ = self.store.call(|_| ()).await;
+    }
+}

@@ -1,0 +1,239 @@
+//! `tessera run`: a whole sweep on this machine: a coordinator on a loopback
+//! port plus local workers in the same process, talking the same gRPC as a
+//! distributed sweep.
+
+use super::net;
+use anyhow::Context;
+use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+use std::io::IsTerminal;
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+use std::sync::Arc;
+use std::time::{Duration, Instant};
+use tessera_coordinator::engine::{Engine, OpenOptions};
+use tessera_coordinator::scheduler::LeaseTimes;
+use tessera_coordinator::server::{self, ServeOptions};
+use tessera_coordinator::service::CoordinatorService;
+use tessera_coordinator::status::SweepStatus;
+use tessera_worker::client::{self, WorkerOptions};
+use tessera_worker::runner::{RunnerConfig, Runners};
+use tessera_worker::spool::Spool;
+use tokio_util::sync::CancellationToken;
+
+/// Arguments of `tessera run`.
+#[derive(clap::Args, Debug)]
+#[command(after_help = "\
+Examples:
+  tessera run sweep.toml                 run the sweep here, results in sweep.db
+  tessera run sweep.toml --workers 2     use two parallel runs
+  tessera status --db sweep.db           look at it later (also while it runs)
+
+Run the same command again to continue an interrupted sweep.")]
+pub struct RunArgs {
+    /// The sweep file (TOML).
+    pub spec: PathBuf,
+    /// The sweep database (default: the sweep file with .db instead of .toml).
+    #[arg(long, value_name = "FILE")]
+    pub db: Option<PathBuf>,
+    /// Parallel runs on this machine (default: the number of cores).
+    #[arg(long, value_name = "N")]
+    pub workers: Option<u32>,
+    /// Resume the sweep stored in --db even if the sweep file differs from it.
+    #[arg(long)]
+    pub force: bool,
+    /// Keep each external run's working directory.
+    #[arg(long)]
+    pub keep_workdirs: bool,
+}
+
+/// The database path `tessera run` uses for a sweep file.
+pub fn default_db(spec: &Path) -> PathBuf {
+    spec.with_extension("db")
+}
+
+/// Command words that name a file next to the sweep file become absolute,
+/// so a spec's `command = ["python3", "sim.py"]` works from any directory.
+fn resolve_command(words: &[String], spec_dir: &Path) -> Vec<String> {
+    words
+        .iter()
+        .enumerate()
+        .map(|(i, w)| {
+            let p = spec_dir.join(w);
+            let looks_like_path = i > 0 || w.contains('/');
+            if looks_like_path && !w.starts_with('/') && !w.contains('{') && p.is_file() {
+                p.canonicalize().unwrap_or(p).display().to_string()
+            } else {
+                w.clone()
+            }
+        })
+        .collect()
+}
+
+fn progress_line(st: &SweepStatus, started: Instant, done_at_start: u64) -> String {
+    let minutes = started.elapsed().as_secs_f64() / 60.0;
+    let new = (st.done + st.failed).saturating_sub(done_at_start);
+    let rate = if minutes > 0.0 { new as f64 / minutes } else { 0.0 };
+    let left = st.evaluations_total.saturating_sub(st.done + st.failed);
+    let eta = if rate > 0.0 {
+        let secs = (left as f64 / rate * 60.0).round() as u64;
+        humantime::format_duration(Duration::from_secs(secs)).to_string()
+    } else {
+        "?".to_string()
+    };
+    let best = st
+        .best
+        .as_ref()
+        .map(|b| format!("best {} = {:.4}", st.objective_label, b.objective))
+        .unwrap_or_else(|| "no result yet".to_string());
+    format!(
+        "{} failed · {:.0} runs/min · {best} · ~{eta} left",
+        st.failed, rate
+    )
+}
+
+/// Runs `tessera run`.
+pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
+    let spec_text = std::fs::read_to_string(&args.spec)
+        .with_context(|| format!("cannot read the sweep file {}", args.spec.display()))?;
+    let db = args.db.clone().unwrap_or_else(|| default_db(&args.spec));
+    let engine = Engine::open(OpenOptions {
+        db: db.clone(),
+        spec_text,
+        spec_file: args.spec.display().to_string(),
+        force: args.force,
+        times: LeaseTimes::default(),
+    })?;
+    let spec = engine.spec();
+    let n = match args.workers {
+        Some(0) => anyhow::bail!("--workers must be at least 1"),
+        Some(n) => n,
+        None => std::thread::available_parallelism().map_or(1, |n| n.get() as u32),
+    };
+    let spec_dir = args
+        .spec
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."))
+        .to_path_buf();
+    let commands = match &spec.model.command {
+        Some(words) => vec![(spec.model.name.clone(), resolve_command(words, &spec_dir))],
+        None => Vec::new(),
+    };
+    let runners = Arc::new(Runners::new(RunnerConfig {
+        commands,
+        keep_workdirs: args.keep_workdirs,
+        ..RunnerConfig::default()
+    }));
+    let rt = tokio::runtime::Runtime::new().context("cannot start the async runtime")?;
+    let outcome = rt.block_on(async move {
+        let listener = tokio::net::TcpListener::bind("127.0.0.1:0")
+            .await
+            .context("cannot open a loopback port")?;
+        let addr = listener.local_addr()?;
+        let stop_server = CancellationToken::new();
+        let stop_workers = CancellationToken::new();
+        let service = CoordinatorService::new(engine.clone());
+        let server_stop = stop_server.clone();
+        // The coordinator; ends when `stop_server` is cancelled after the workers.
+        let server = tokio::spawn(server::serve(
+            engine.clone(),
+            service,
+            listener,
+            ServeOptions::default(),
+            async move { server_stop.cancelled().await },
+        ));
+        // One in-process worker per slot; each ends when the sweep is finished
+        // or `stop_workers` is cancelled (Ctrl-C).
+        let mut workers = tokio::task::JoinSet::new();
+        for i in 0..n {
+            let opts = WorkerOptions {
+                coordinator: format!("http://{addr}"),
+                name: format!("local-{}", i + 1),
+                host: net::host_name(),
+                slots: 1,
+                token: None,
+                ca_pem: None,
+                spool: Spool::new(None),
+                grace: Duration::from_secs(5),
+                exit_when_finished: true,
+                max_backoff: Duration::from_secs(2),
+            };
+            let stop = stop_workers.clone();
+            let runners = runners.clone();
+            workers.spawn(async move { client::run(opts, runners, async move { stop.cancelled().await }).await });
+        }
+        let st = engine.status();
+        let bar = ProgressBar::new(st.evaluations_total);
+        if std::io::stderr().is_terminal() {
+            bar.set_draw_target(ProgressDrawTarget::stderr());
+        } else {
+            bar.set_draw_target(ProgressDrawTarget::hidden());
+        }
+        bar.set_style(
+            ProgressStyle::with_template("{bar:30.cyan/blue} {pos}/{len} evaluations · {msg}")
+                .unwrap_or_else(|_| ProgressStyle::default_bar()),
+        );
+        eprintln!(
+            "sweep {:?}: {} points x {} replicates with {n} local workers, database {}",
+            spec.name,
+            spec.budget,
+            spec.replicates,
+            db.display()
+        );
+        let started = Instant::now();
+        let done_at_start = st.done + st.failed;
+        let mut interrupted = false;
+        let mut last_line = Instant::now();
+        let ctrl_c = net::stop_signal();
+        tokio::pin!(ctrl_c);
+        loop {
+            let st = engine.status();
+            bar.set_position(st.done + st.failed);
+            bar.set_message(progress_line(&st, started, done_at_start));
+            if bar.is_hidden() && last_line.elapsed() > Duration::from_secs(10) {
+                eprintln!("{}/{} evaluations · {}", st.done + st.failed, st.evaluations_total, progress_line(&st, started, done_at_start));
+                last_line = Instant::now();
+            }
+            if st.finished || workers.is_empty() {
+                break;
+            }
+            tokio::select! {
+                _ = &mut ctrl_c => {
+                    interrupted = true;
+                    eprintln!("stopping: letting running work finish (Ctrl-C again to force)");
+                    break;
+                }
+                _ = tokio::time::sleep(Duration::from_millis(200)) => {}
+                Some(r) = workers.join_next() => {
+                    if let Ok(Err(e)) = r {
+                        tracing::error!(error = %e, "a local worker stopped");
+                    }
+                }
+            }
+        }
+        stop_workers.cancel();
+        while let Some(r) = workers.join_next().await {
+            if let Ok(Err(e)) = r {
+                tracing::error!(error = %e, "a local worker stopped");
+            }
+        }
+        stop_server.cancel();
+        match server.await {
+            Ok(r) => r?,
+            Err(e) => anyhow::bail!("the coordinator task failed: {e}"),
+        }
+        bar.finish_and_clear();
+        let st = engine.status();
+        super::status::print_human(&st, Some(&spec));
+        if interrupted || !st.finished {
+            eprintln!(
+                "interrupted: run `tessera run {}` again to continue",
+                args.spec.display()
+            );
+            return anyhow::Ok(ExitCode::from(130));
+        }
+        eprintln!("results: tessera export --db {}", db.display());
+        anyhow::Ok(ExitCode::SUCCESS)
+    })?;
+    Ok(outcome)
+}

@@ -1,0 +1,171 @@
+//! `tessera status`: how far a sweep has got, from its database or from the
+//! running coordinator.
+
+use super::net;
+use anyhow::Context;
+use std::path::PathBuf;
+use std::process::ExitCode;
+use tessera_coordinator::spec::{self, Spec};
+use tessera_coordinator::status::{self, SweepStatus};
+use tessera_coordinator::store::Store;
+
+/// Arguments of `tessera status`.
+#[derive(clap::Args, Debug)]
+#[command(after_help = "\
+Examples:
+  tessera status --db sweep.db
+  tessera status --coordinator http://10.0.0.5:7300 --token-file lab.token
+  tessera status --db sweep.db --json
+
+Reading the database works while a sweep runs; only the coordinator knows its workers.")]
+#[command(group(clap::ArgGroup::new("source").required(true).args(["db", "coordinator"])))]
+pub struct StatusArgs {
+    /// Read the sweep database.
+    #[arg(long, value_name = "FILE")]
+    pub db: Option<PathBuf>,
+    /// Ask a running coordinator (it also knows its workers).
+    #[arg(long, value_name = "URL")]
+    pub coordinator: Option<String>,
+    /// Token file, for a coordinator that requires one.
+    #[arg(long, value_name = "FILE")]
+    pub token_file: Option<PathBuf>,
+    /// Print one JSON object instead of tables.
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// Reads the status of the sweep stored in `db`.
+pub fn from_db(db: &std::path::Path) -> anyhow::Result<(SweepStatus, Spec)> {
+    let store = Store::open_existing(db)?;
+    let sweep = store
+        .sweep()?
+        .with_context(|| format!("{} holds no sweep yet", db.display()))?;
+    let spec = spec::parse(&sweep.spec_text, &sweep.spec_file)
+        .map_err(|e| anyhow::anyhow!("the sweep file stored in {} is not valid: {e}", db.display()))?;
+    let points = store.points(sweep.id)?;
+    let evals = store.evaluations(sweep.id)?;
+    Ok((status::from_records(&spec, &points, &evals), spec))
+}
+
+async fn from_coordinator(url: &str, token: Option<String>) -> anyhow::Result<SweepStatus> {
+    use tessera_proto::v1::coordinator_client::CoordinatorClient;
+    let channel = tonic::transport::Endpoint::from_shared(url.to_string())
+        .with_context(|| format!("--coordinator {url:?} is not a URL; use for example http://10.0.0.5:7300"))?
+        .connect_timeout(std::time::Duration::from_secs(5))
+        .connect()
+        .await
+        .with_context(|| format!("cannot reach the coordinator at {url}"))?;
+    let mut client = CoordinatorClient::new(channel);
+    let mut req = tonic::Request::new(tessera_proto::v1::StatusRequest {});
+    if let Some(t) = token {
+        let v = format!("Bearer {t}")
+            .parse()
+            .map_err(|_| anyhow::anyhow!("the token contains characters not allowed in a header"))?;
+        req.metadata_mut().insert("authorization", v);
+    }
+    let reply = client
+        .status(req)
+        .await
+        .map_err(|s| anyhow::anyhow!("the coordinator answered: {}", s.message()))?;
+    Ok(tessera_coordinator::service::status_from_reply(reply.into_inner()))
+}
+
+fn unit_of<'a>(spec: Option<&'a Spec>, name: &str) -> &'a str {
+    spec.and_then(|s| s.params.iter().find(|p| p.name == name))
+        .map_or("", |p| p.unit.as_str())
+}
+
+/// Prints a status for people.
+pub fn print_human(st: &SweepStatus, spec: Option<&Spec>) {
+    println!("sweep      {}", st.sweep);
+    println!("objective  {}", st.objective_label);
+    println!(
+        "points     {} of {} ({} replicates each)",
+        st.points, st.budget, st.replicates
+    );
+    println!(
+        "runs       {} done, {} failed, {} running, {} queued, of {}{}",
+        st.done,
+        st.failed,
+        st.running,
+        st.queued,
+        st.evaluations_total,
+        if st.finished { " (finished)" } else { "" }
+    );
+    match &st.best {
+        Some(b) => {
+            println!("best       {} = {:.6} at point {}", st.objective_label, b.objective, b.point_id);
+            for (k, v) in &b.params {
+                println!("             {k} = {v:.6} {}", unit_of(spec, k));
+            }
+        }
+        None => println!("best       no finished run yet"),
+    }
+    if !st.workers.is_empty() {
+        println!();
+        println!(
+            "{:<20} {:<16} {:>5} {:>7} {:>9} {:>9} {:>10}",
+            "worker", "host", "slots", "running", "completed", "runs/min", "contact"
+        );
+        let now = tessera_coordinator::scheduler::unix_ms();
+        for w in &st.workers {
+            let ago = now.saturating_sub(w.last_contact_unix_ms) / 1000;
+            println!(
+                "{:<20} {:<16} {:>5} {:>7} {:>9} {:>9.1} {:>10}",
+                w.name,
+                w.host,
+                w.slots,
+                w.running,
+                w.completed,
+                w.runs_per_minute,
+                if w.connected { format!("{ago}s ago") } else { format!("lost {ago}s") }
+            );
+        }
+    }
+    if !st.failures.is_empty() {
+        println!();
+        println!("failures by reason:");
+        for (reason, n) in &st.failures {
+            println!("  {n:>6}  {reason}");
+        }
+    }
+}
+
+/// Runs `tessera status`.
+pub fn run(args: StatusArgs) -> anyhow::Result<ExitCode> {
+    let (st, spec) = match (&args.db, &args.coordinator) {
+        (Some(db), _) => {
+            let (st, spec) = from_db(db)?;
+            (st, Some(spec))
+        }
+        (None, Some(url)) => {
+            let token = args.token_file.as_deref().map(net::read_token).transpose()?;
+            let rt = tokio::runtime::Runtime::new().context("cannot start the async runtime")?;
+            (rt.block_on(from_coordinator(url, token))?, None)
+        }
+        (None, None) => anyhow::bail!("give --db FILE or --coordinator URL"),
+    };
+    if args.json {
+        let mut v = serde_json::to_value(&st)?;
+        if let Some(obj) = v.as_object_mut() {
+            let best = match &st.best {
+                Some(b) => serde_json::json!({"params": b.params, "objective": b.objective, "point_id": b.point_id}),
+                None => serde_json::Value::Null,
+            };
+            obj.insert("best".into(), best);
+            obj.insert(
+                "failures".into(),
+                serde_json::Value::Array(
+                    st.failures
+                        .iter()
+                        .map(|(r, n)| serde_json::json!({"reason": r, "count": n}))
+                        .collect(),
+                ),
+            );
+        }
+        println!("{v}");
+    } else {
+        print_human(&st, spec.as_ref());
+    }
+    Ok(ExitCode::SUCCESS)
+}

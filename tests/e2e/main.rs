@@ -1,0 +1,10 @@
+//! End-to-end tests: real `tessera` processes on loopback sockets, killed
+//! and restarted, checked through the database they leave behind.
+//!
+//! One binary, a module per area; `harness` starts processes in a unique
+//! temporary directory and cleans them up.
+
+mod deploy_files;
+mod distributed;
+mod harness;
+mod local_run;
