@@ -12,3 +12,4 @@
 
 pub mod seed;
 pub mod spec;
+pub mod store;

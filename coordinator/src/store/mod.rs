@@ -1,0 +1,831 @@
+//! The sweep database: one SQLite file per sweep.
+//!
+//! The file holds the sweep file's own text (so a database describes itself),
+//! the points, one row per (point, replicate) evaluation, and the surrogate
+//! fits. It is opened in WAL mode with `synchronous = FULL`, so a result is on
+//! disk when [`Store::commit_outcomes`] returns: the coordinator acknowledges
+//! a result to a worker only after that. Readers (`tessera export`,
+//! `tessera status`) can open the file while a coordinator writes to it.
+//!
+//! The schema is versioned (see `schema.rs`): an older database is migrated
+//! on open, a newer one is refused with a message naming both versions, and a
+//! file that is not a tessera database is refused without being touched.
+
+mod schema;
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+use std::time::{Duration, SystemTime, UNIX_EPOCH};
+
+use rusqlite::{params, Connection, OpenFlags, OptionalExtension, Row};
+
+use crate::seed::replicate_seed;
+pub use schema::SCHEMA_VERSION;
+
+/// How long a writer waits for another connection's lock before giving up.
+const BUSY_TIMEOUT: Duration = Duration::from_secs(10);
+
+/// What can go wrong with the sweep database.
+#[derive(Debug, thiserror::Error)]
+pub enum StoreError {
+    /// `open_existing` on a path with no file.
+    #[error("no sweep database at {path}; start the sweep first (tessera run or tessera serve) or check the path")]
+    Missing {
+        /// The path given.
+        path: PathBuf,
+    },
+    /// The file exists but is not an SQLite database.
+    #[error("{path} is not a tessera sweep database (not an SQLite file); it was left untouched")]
+    NotADatabase {
+        /// The path given.
+        path: PathBuf,
+    },
+    /// An SQLite database written by some other program.
+    #[error("{path} is an SQLite database of some other program, not a tessera sweep database; it was left untouched")]
+    Foreign {
+        /// The path given.
+        path: PathBuf,
+    },
+    /// Written by a newer tessera whose schema this build does not know.
+    #[error("{path} was written by a newer tessera ({written_by}, schema version {found}); this tessera {ours} reads schema versions up to {supported}: upgrade tessera to open it")]
+    NewerSchema {
+        /// The path given.
+        path: PathBuf,
+        /// The file's schema version.
+        found: i64,
+        /// The newest version this build knows.
+        supported: i64,
+        /// The tessera version recorded in the file, if any.
+        written_by: String,
+        /// This build's version.
+        ours: &'static str,
+    },
+    /// The file does not keep a write-ahead log (for example on a network file system).
+    #[error("{path}: SQLite could not switch to WAL mode (got {mode:?}); keep the database on a local disk")]
+    NoWal {
+        /// The path given.
+        path: PathBuf,
+        /// The journal mode SQLite reported.
+        mode: String,
+    },
+    /// `create_sweep` on a database that already holds one.
+    #[error("this database already holds the sweep {name:?}; one database holds one sweep: use another --db file")]
+    SweepExists {
+        /// Name of the stored sweep.
+        name: String,
+    },
+    /// A row that cannot be read back (edited by hand, or damaged).
+    #[error("damaged row in the sweep database: {0}")]
+    Damaged(String),
+    /// Any other SQLite error.
+    #[error("sweep database error: {0}")]
+    Sqlite(#[from] rusqlite::Error),
+}
+
+/// The one sweep stored in a database.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct SweepRecord {
+    /// Row id.
+    pub id: i64,
+    /// The sweep's name.
+    pub name: String,
+    /// The sweep file's text, exactly as given.
+    pub spec_text: String,
+    /// The sweep file's name as given (for messages).
+    pub spec_file: String,
+    /// The sweep seed.
+    pub seed: u64,
+    /// When the sweep was created (ms since the Unix epoch).
+    pub created_unix_ms: u64,
+}
+
+/// Why a point was added.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum PointOrigin {
+    /// Part of the initial space-filling design.
+    Design,
+    /// Proposed by expected improvement.
+    Improve,
+    /// Proposed where the surrogate is least certain.
+    Explore,
+}
+
+impl PointOrigin {
+    /// The word stored in the database and shown in exports.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            PointOrigin::Design => "design",
+            PointOrigin::Improve => "improve",
+            PointOrigin::Explore => "explore",
+        }
+    }
+
+    fn parse(s: &str) -> Result<Self, StoreError> {
+        match s {
+            "design" => Ok(PointOrigin::Design),
+            "improve" => Ok(PointOrigin::Improve),
+            "explore" => Ok(PointOrigin::Explore),
+            other => Err(StoreError::Damaged(format!(
+                "unknown point origin {other:?}"
+            ))),
+        }
+    }
+}
+
+/// A point to add.
+#[derive(Clone, Debug, PartialEq)]
+pub struct NewPoint {
+    /// Parameter values in natural units, in the sweep file's parameter order.
+    pub values: Vec<f64>,
+    /// Why it is added.
+    pub origin: PointOrigin,
+    /// Planning round that proposed it (0 for the initial design).
+    pub batch: u32,
+}
+
+/// A stored point.
+#[derive(Clone, Debug, PartialEq)]
+pub struct PointRecord {
+    /// Row id.
+    pub id: i64,
+    /// Index within the sweep, from 0 in order of insertion (used for replicate seeds).
+    pub idx: u64,
+    /// Parameter values in natural units, in the sweep file's parameter order.
+    pub values: Vec<f64>,
+    /// Why it was added.
+    pub origin: PointOrigin,
+    /// Planning round that proposed it (0 for the initial design).
+    pub batch: u32,
+}
+
+/// State of one (point, replicate) evaluation.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum EvalStatus {
+    /// Waiting for a result (possibly leased to a worker right now).
+    Queued,
+    /// A result is stored.
+    Done,
+    /// Failed on its last allowed attempt.
+    Failed,
+}
+
+impl EvalStatus {
+    /// The word stored in the database and shown in exports.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            EvalStatus::Queued => "queued",
+            EvalStatus::Done => "done",
+            EvalStatus::Failed => "failed",
+        }
+    }
+
+    fn parse(s: &str) -> Result<Self, StoreError> {
+        match s {
+            "queued" => Ok(EvalStatus::Queued),
+            "done" => Ok(EvalStatus::Done),
+            "failed" => Ok(EvalStatus::Failed),
+            other => Err(StoreError::Damaged(format!(
+                "unknown evaluation status {other:?}"
+            ))),
+        }
+    }
+}
+
+/// A stored evaluation.
+#[derive(Clone, Debug, PartialEq)]
+pub struct EvaluationRecord {
+    /// Row id (what leases and results refer to).
+    pub id: i64,
+    /// The point's row id.
+    pub point_id: i64,
+    /// The point's index within the sweep.
+    pub point_idx: u64,
+    /// Replicate number, from 0.
+    pub replicate: u32,
+    /// The run's seed (derived with [`crate::seed::replicate_seed`]).
+    pub seed: u64,
+    /// Queued, done or failed.
+    pub status: EvalStatus,
+    /// Results reported so far (failed attempts plus the successful one).
+    pub attempts: u32,
+    /// Worker that reported the latest result.
+    pub worker: Option<String>,
+    /// When the latest reported run started (ms since the Unix epoch).
+    pub started_unix_ms: Option<u64>,
+    /// When the latest reported run ended (ms since the Unix epoch).
+    pub ended_unix_ms: Option<u64>,
+    /// The metrics of the successful run (empty until done). Non-finite
+    /// values reported by a model are stored as missing.
+    pub metrics: BTreeMap<String, f64>,
+    /// Kind of the latest failure (`exit`, `timeout`, ...), if any attempt failed.
+    pub failure_kind: Option<String>,
+    /// What went wrong in the latest failure.
+    pub failure_reason: Option<String>,
+    /// End of the simulator's stderr in the latest failure.
+    pub stderr_tail: Option<String>,
+}
+
+/// One result reported by a worker.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Outcome {
+    /// The evaluation the result is for.
+    pub evaluation_id: i64,
+    /// Name of the worker that ran it.
+    pub worker: String,
+    /// When the run started (ms since the Unix epoch).
+    pub started_unix_ms: u64,
+    /// When the run ended (ms since the Unix epoch).
+    pub ended_unix_ms: u64,
+    /// Metrics or failure.
+    pub result: OutcomeResult,
+}
+
+/// What a run produced.
+#[derive(Clone, Debug, PartialEq)]
+pub enum OutcomeResult {
+    /// The run finished with these metrics.
+    Done(BTreeMap<String, f64>),
+    /// The run failed.
+    Failed {
+        /// Short kind (`exit`, `timeout`, `crash`, ...).
+        kind: String,
+        /// What went wrong, in words.
+        reason: String,
+        /// End of the simulator's stderr.
+        stderr_tail: String,
+        /// No retries are left: the evaluation becomes `failed`.
+        final_attempt: bool,
+    },
+}
+
+/// What happened to one outcome in [`Store::commit_outcomes`].
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum CommitResult {
+    /// Written.
+    Stored,
+    /// The evaluation already had its final result; this one was ignored.
+    Duplicate,
+    /// No evaluation with that id.
+    Unknown,
+}
+
+/// A surrogate fit to store.
+#[derive(Clone, Debug, PartialEq)]
+pub struct NewFit {
+    /// The metric (or objective) fitted.
+    pub metric: String,
+    /// Number of results the fit used.
+    pub n_results: u32,
+    /// Kernel name, e.g. `matern52`.
+    pub kernel: String,
+    /// Everything needed to predict again (hyperparameters, training data).
+    pub model: serde_json::Value,
+    /// Fit diagnostics (log marginal likelihood, leave-one-out errors, ...).
+    pub diagnostics: serde_json::Value,
+}
+
+/// A stored surrogate fit.
+#[derive(Clone, Debug, PartialEq)]
+pub struct FitRecord {
+    /// Row id.
+    pub id: i64,
+    /// The metric (or objective) fitted.
+    pub metric: String,
+    /// Number of results the fit used.
+    pub n_results: u32,
+    /// Kernel name.
+    pub kernel: String,
+    /// The stored model.
+    pub model: serde_json::Value,
+    /// The stored diagnostics.
+    pub diagnostics: serde_json::Value,
+    /// When it was stored (ms since the Unix epoch).
+    pub created_unix_ms: u64,
+}
+
+/// An open sweep database.
+#[derive(Debug)]
+pub struct Store {
+    conn: Connection,
+    path: PathBuf,
+}
+
+fn now_ms() -> i64 {
+    SystemTime::now()
+        .duration_since(UNIX_EPOCH)
+        .map_or(0, |d| d.as_millis() as i64)
+}
+
+/// Seeds and times are u64 in Rust and INTEGER (i64) in SQLite: stored bit for bit.
+fn to_sql_u64(x: u64) -> i64 {
+    x as i64
+}
+
+fn from_sql_u64(x: i64) -> u64 {
+    x as u64
+}
+
+fn is_not_a_database(e: &rusqlite::Error) -> bool {
+    matches!(
+        e.sqlite_error_code(),
+        Some(rusqlite::ErrorCode::NotADatabase)
+    )
+}
+
+impl Store {
+    /// Opens the database at `path`, creating it if missing and migrating an
+    /// older schema.
+    pub fn open(path: &Path) -> Result<Store, StoreError> {
+        let flags = OpenFlags::SQLITE_OPEN_READ_WRITE
+            | OpenFlags::SQLITE_OPEN_CREATE
+            | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        Self::open_with(path, flags)
+    }
+
+    /// Opens an existing database; refuses a missing file instead of creating one.
+    pub fn open_existing(path: &Path) -> Result<Store, StoreError> {
+        if !path.is_file() {
+            return Err(StoreError::Missing {
+                path: path.to_path_buf(),
+            });
+        }
+        let flags = OpenFlags::SQLITE_OPEN_READ_WRITE | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        Self::open_with(path, flags)
+    }
+
+    fn open_with(path: &Path, flags: OpenFlags) -> Result<Store, StoreError> {
+        let conn = Connection::open_with_flags(path, flags)?;
+        let mut store = Store {
+            conn,
+            path: path.to_path_buf(),
+        };
+        store.check_identity().map_err(|e| match e {
+            StoreError::Sqlite(ref s) if is_not_a_database(s) => StoreError::NotADatabase {
+                path: path.to_path_buf(),
+            },
+            other => other,
+        })?;
+        store.conn.busy_timeout(BUSY_TIMEOUT)?;
+        let mode: String =
+            store
+                .conn
+                .pragma_update_and_check(None, "journal_mode", "WAL", |r| r.get(0))?;
+        if !mode.eq_ignore_ascii_case("wal") {
+            return Err(StoreError::NoWal {
+                path: path.to_path_buf(),
+                mode,
+            });
+        }
+        store.conn.pragma_update(None, "synchronous", "FULL")?;
+        store.conn.pragma_update(None, "foreign_keys", "ON")?;
+        store.migrate()?;
+        Ok(store)
+    }
+
+    /// Refuses files that are not tessera databases, or are from a newer schema.
+    fn check_identity(&mut self) -> Result<(), StoreError> {
+        let app: i32 = self
+            .conn
+            .pragma_query_value(None, "application_id", |r| r.get(0))?;
+        let version: i64 = self
+            .conn
+            .pragma_query_value(None, "user_version", |r| r.get(0))?;
+        let objects: i64 = self
+            .conn
+            .query_row("SELECT count(*) FROM sqlite_master", [], |r| r.get(0))?;
+        let fresh = app == 0 && version == 0 && objects == 0;
+        if !fresh && app != schema::APPLICATION_ID {
+            return Err(StoreError::Foreign {
+                path: self.path.clone(),
+            });
+        }
+        if version > SCHEMA_VERSION {
+            let written_by = self
+                .conn
+                .query_row("SELECT value FROM meta WHERE key = 'written_by'", [], |r| {
+                    r.get::<_, String>(0)
+                })
+                .optional()
+                .ok()
+                .flatten()
+                .unwrap_or_else(|| "unknown version".to_string());
+            return Err(StoreError::NewerSchema {
+                path: self.path.clone(),
+                found: version,
+                supported: SCHEMA_VERSION,
+                written_by,
+                ours: env!("CARGO_PKG_VERSION"),
+            });
+        }
+        Ok(())
+    }
+
+    /// Brings the schema to [`SCHEMA_VERSION`], one migration per transaction.
+    fn migrate(&mut self) -> Result<(), StoreError> {
+        let version: i64 = self
+            .conn
+            .pragma_query_value(None, "user_version", |r| r.get(0))?;
+        for (i, sql) in schema::MIGRATIONS.iter().enumerate() {
+            let target = i as i64 + 1;
+            if version >= target {
+                continue;
+            }
+            let tx = self.conn.transaction()?;
+            tx.execute_batch(sql)?;
+            tx.pragma_update(None, "application_id", schema::APPLICATION_ID)?;
+            tx.pragma_update(None, "user_version", target)?;
+            tx.execute(
+                "INSERT INTO meta (key, value) VALUES ('schema_version', ?1)
+                 ON CONFLICT(key) DO UPDATE SET value = excluded.value",
+                params![target.to_string()],
+            )?;
+            tx.execute(
+                "INSERT INTO meta (key, value) VALUES ('written_by', ?1)
+                 ON CONFLICT(key) DO UPDATE SET value = excluded.value",
+                params![format!("tessera {}", env!("CARGO_PKG_VERSION"))],
+            )?;
+            tx.commit()?;
+            tracing::debug!(path = %self.path.display(), version = target, "migrated sweep database");
+        }
+        Ok(())
+    }
+
+    /// The file this store writes.
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    /// The schema version of the open file (always [`SCHEMA_VERSION`] after open).
+    pub fn schema_version(&self) -> Result<i64, StoreError> {
+        Ok(self
+            .conn
+            .pragma_query_value(None, "user_version", |r| r.get(0))?)
+    }
+
+    /// SQLite's journal mode for this connection (`"wal"` after open).
+    pub fn journal_mode(&self) -> Result<String, StoreError> {
+        Ok(self
+            .conn
+            .pragma_query_value(None, "journal_mode", |r| r.get(0))?)
+    }
+
+    /// The sweep in this database, if one was created.
+    pub fn sweep(&self) -> Result<Option<SweepRecord>, StoreError> {
+        Ok(self
+            .conn
+            .query_row(
+                "SELECT id, name, spec_text, spec_file, seed, created_unix_ms
+                 FROM sweeps ORDER BY id LIMIT 1",
+                [],
+                |r| {
+                    Ok(SweepRecord {
+                        id: r.get(0)?,
+                        name: r.get(1)?,
+                        spec_text: r.get(2)?,
+                        spec_file: r.get(3)?,
+                        seed: from_sql_u64(r.get(4)?),
+                        created_unix_ms: from_sql_u64(r.get(5)?),
+                    })
+                },
+            )
+            .optional()?)
+    }
+
+    /// Stores the sweep; refuses if the database already holds one.
+    pub fn create_sweep(
+        &mut self,
+        name: &str,
+        spec_text: &str,
+        spec_file: &str,
+        seed: u64,
+    ) -> Result<SweepRecord, StoreError> {
+        let tx = self.conn.transaction()?;
+        let existing: Option<String> = tx
+            .query_row("SELECT name FROM sweeps LIMIT 1", [], |r| r.get(0))
+            .optional()?;
+        if let Some(name) = existing {
+            return Err(StoreError::SweepExists { name });
+        }
+        let created = now_ms();
+        tx.execute(
+            "INSERT INTO sweeps (name, spec_text, spec_file, seed, created_unix_ms)
+             VALUES (?1, ?2, ?3, ?4, ?5)",
+            params![name, spec_text, spec_file, to_sql_u64(seed), created],
+        )?;
+        let id = tx.last_insert_rowid();
+        tx.commit()?;
+        Ok(SweepRecord {
+            id,
+            name: name.to_string(),
+            spec_text: spec_text.to_string(),
+            spec_file: spec_file.to_string(),
+            seed,
+            created_unix_ms: from_sql_u64(created),
+        })
+    }
+
+    /// Adds points after the existing ones, each with `replicates` queued
+    /// evaluations seeded by [`replicate_seed`]`(sweep_seed, idx, r)`, in one
+    /// transaction. Returns the new points in order.
+    pub fn insert_points(
+        &mut self,
+        sweep_id: i64,
+        points: &[NewPoint],
+        replicates: u32,
+        sweep_seed: u64,
+    ) -> Result<Vec<PointRecord>, StoreError> {
+        let tx = self.conn.transaction()?;
+        let next: i64 = tx.query_row(
+            "SELECT coalesce(max(idx) + 1, 0) FROM points WHERE sweep_id = ?1",
+            params![sweep_id],
+            |r| r.get(0),
+        )?;
+        let created = now_ms();
+        let mut out = Vec::with_capacity(points.len());
+        {
+            let mut put_point = tx.prepare(
+                "INSERT INTO points (sweep_id, idx, values_json, origin, batch, created_unix_ms)
+                 VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+            )?;
+            let mut put_eval = tx.prepare(
+                "INSERT INTO evaluations (point_id, replicate, seed, status, attempts)
+                 VALUES (?1, ?2, ?3, 'queued', 0)",
+            )?;
+            for (k, p) in points.iter().enumerate() {
+                if let Some(bad) = p.values.iter().find(|v| !v.is_finite()) {
+                    return Err(StoreError::Damaged(format!(
+                        "point values must be finite numbers, got {bad}"
+                    )));
+                }
+                let idx = next + k as i64;
+                let values_json = serde_json::to_string(&p.values)
+                    .map_err(|e| StoreError::Damaged(format!("point values: {e}")))?;
+                put_point.execute(params![
+                    sweep_id,
+                    idx,
+                    values_json,
+                    p.origin.as_str(),
+                    p.batch,
+                    created
+                ])?;
+                let point_id = tx.last_insert_rowid();
+                for r in 0..replicates {
+                    let seed = replicate_seed(sweep_seed, idx as u64, r);
+                    put_eval.execute(params![point_id, r, to_sql_u64(seed)])?;
+                }
+                out.push(PointRecord {
+                    id: point_id,
+                    idx: idx as u64,
+                    values: p.values.clone(),
+                    origin: p.origin,
+                    batch: p.batch,
+                });
+            }
+        }
+        tx.commit()?;
+        Ok(out)
+    }
+
+    /// All points of the sweep, by index.
+    pub fn points(&self, sweep_id: i64) -> Result<Vec<PointRecord>, StoreError> {
+        let mut stmt = self.conn.prepare(
+            "SELECT id, idx, values_json, origin, batch FROM points
+             WHERE sweep_id = ?1 ORDER BY idx",
+        )?;
+        let rows = stmt.query_map(params![sweep_id], |r| {
+            Ok((
+                r.get::<_, i64>(0)?,
+                r.get::<_, i64>(1)?,
+                r.get::<_, String>(2)?,
+                r.get::<_, String>(3)?,
+                r.get::<_, u32>(4)?,
+            ))
+        })?;
+        let mut out = Vec::new();
+        for row in rows {
+            let (id, idx, values_json, origin, batch) = row?;
+            let values: Vec<f64> = serde_json::from_str(&values_json).map_err(|e| {
+                StoreError::Damaged(format!("point {idx}: values {values_json:?}: {e}"))
+            })?;
+            out.push(PointRecord {
+                id,
+                idx: idx as u64,
+                values,
+                origin: PointOrigin::parse(&origin)?,
+                batch,
+            });
+        }
+        Ok(out)
+    }
+
+    /// All evaluations of the sweep, by point index and replicate.
+    pub fn evaluations(&self, sweep_id: i64) -> Result<Vec<EvaluationRecord>, StoreError> {
+        let mut stmt = self.conn.prepare(
+            "SELECT e.id, e.point_id, p.idx, e.replicate, e.seed, e.status, e.attempts,
+                    e.worker, e.started_unix_ms, e.ended_unix_ms, e.metrics_json,
+                    e.failure_kind, e.failure_reason, e.stderr_tail
+             FROM evaluations e JOIN points p ON p.id = e.point_id
+             WHERE p.sweep_id = ?1 ORDER BY p.idx, e.replicate",
+        )?;
+        let rows = stmt.query_map(params![sweep_id], raw_evaluation)?;
+        let mut out = Vec::new();
+        for row in rows {
+            out.push(row?.finish()?);
+        }
+        Ok(out)
+    }
+
+    /// Writes a batch of results in one transaction (group commit).
+    ///
+    /// The first result for an evaluation wins: a result for an evaluation
+    /// that is already done or failed is ignored ([`CommitResult::Duplicate`]).
+    /// A failure counts an attempt and keeps its kind, reason and stderr;
+    /// the evaluation becomes `failed` only on its final attempt, otherwise
+    /// it stays queued to be handed out again. Returns one [`CommitResult`]
+    /// per outcome, in order; when this returns `Ok`, the batch is on disk.
+    pub fn commit_outcomes(
+        &mut self,
+        outcomes: &[Outcome],
+    ) -> Result<Vec<CommitResult>, StoreError> {
+        let tx = self.conn.transaction()?;
+        let mut out = Vec::with_capacity(outcomes.len());
+        {
+            let mut done = tx.prepare(
+                "UPDATE evaluations
+                 SET status = 'done', attempts = attempts + 1, worker = ?2,
+                     started_unix_ms = ?3, ended_unix_ms = ?4, metrics_json = ?5
+                 WHERE id = ?1 AND status = 'queued'",
+            )?;
+            let mut failed = tx.prepare(
+                "UPDATE evaluations
+                 SET status = CASE WHEN ?8 THEN 'failed' ELSE 'queued' END,
+                     attempts = attempts + 1, worker = ?2,
+                     started_unix_ms = ?3, ended_unix_ms = ?4,
+                     failure_kind = ?5, failure_reason = ?6, stderr_tail = ?7
+                 WHERE id = ?1 AND status = 'queued'",
+            )?;
+            let mut exists = tx.prepare("SELECT 1 FROM evaluations WHERE id = ?1")?;
+            for o in outcomes {
+                let started = to_sql_u64(o.started_unix_ms);
+                let ended = to_sql_u64(o.ended_unix_ms);
+                let changed = match &o.result {
+                    OutcomeResult::Done(metrics) => {
+                        // Non-finite metrics become JSON null, read back as missing.
+                        let json = serde_json::to_string(metrics)
+                            .map_err(|e| StoreError::Damaged(format!("metrics: {e}")))?;
+                        done.execute(params![o.evaluation_id, o.worker, started, ended, json])?
+                    }
+                    OutcomeResult::Failed {
+                        kind,
+                        reason,
+                        stderr_tail,
+                        final_attempt,
+                    } => failed.execute(params![
+                        o.evaluation_id,
+                        o.worker,
+                        started,
+                        ended,
+                        kind,
+                        reason,
+                        stderr_tail,
+                        final_attempt
+                    ])?,
+                };
+                out.push(if changed == 1 {
+                    CommitResult::Stored
+                } else if exists.exists(params![o.evaluation_id])? {
+                    CommitResult::Duplicate
+                } else {
+                    CommitResult::Unknown
+                });
+            }
+        }
+        tx.commit()?;
+        Ok(out)
+    }
+
+    /// Stores a surrogate fit.
+    pub fn save_fit(&mut self, sweep_id: i64, fit: &NewFit) -> Result<(), StoreError> {
+        self.conn.execute(
+            "INSERT INTO fits (sweep_id, metric, n_results, kernel, model_json, diagnostics_json, created_unix_ms)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
+            params![
+                sweep_id,
+                fit.metric,
+                fit.n_results,
+                fit.kernel,
+                fit.model.to_string(),
+                fit.diagnostics.to_string(),
+                now_ms()
+            ],
+        )?;
+        Ok(())
+    }
+
+    /// The most recent fit of each metric, by metric name.
+    pub fn latest_fits(&self, sweep_id: i64) -> Result<Vec<FitRecord>, StoreError> {
+        let mut stmt = self.conn.prepare(
+            "SELECT id, metric, n_results, kernel, model_json, diagnostics_json, created_unix_ms
+             FROM fits WHERE id IN (SELECT max(id) FROM fits WHERE sweep_id = ?1 GROUP BY metric)
+             ORDER BY metric",
+        )?;
+        let rows = stmt.query_map(params![sweep_id], |r| {
+            Ok((
+                r.get::<_, i64>(0)?,
+                r.get::<_, String>(1)?,
+                r.get::<_, u32>(2)?,
+                r.get::<_, String>(3)?,
+                r.get::<_, String>(4)?,
+                r.get::<_, String>(5)?,
+                r.get::<_, i64>(6)?,
+            ))
+        })?;
+        let mut out = Vec::new();
+        for row in rows {
+            let (id, metric, n_results, kernel, model, diagnostics, created) = row?;
+            let parse = |s: &str| {
+                serde_json::from_str(s)
+                    .map_err(|e| StoreError::Damaged(format!("fit {id} of {metric}: {e}")))
+            };
+            out.push(FitRecord {
+                model: parse(&model)?,
+                diagnostics: parse(&diagnostics)?,
+                id,
+                metric,
+                n_results,
+                kernel,
+                created_unix_ms: from_sql_u64(created),
+            });
+        }
+        Ok(out)
+    }
+}
+
+/// An evaluation row before its JSON and words are checked.
+struct RawEvaluation {
+    id: i64,
+    point_id: i64,
+    point_idx: i64,
+    replicate: u32,
+    seed: i64,
+    status: String,
+    attempts: u32,
+    worker: Option<String>,
+    started: Option<i64>,
+    ended: Option<i64>,
+    metrics_json: Option<String>,
+    failure_kind: Option<String>,
+    failure_reason: Option<String>,
+    stderr_tail: Option<String>,
+}
+
+fn raw_evaluation(r: &Row<'_>) -> rusqlite::Result<RawEvaluation> {
+    Ok(RawEvaluation {
+        id: r.get(0)?,
+        point_id: r.get(1)?,
+        point_idx: r.get(2)?,
+        replicate: r.get(3)?,
+        seed: r.get(4)?,
+        status: r.get(5)?,
+        attempts: r.get(6)?,
+        worker: r.get(7)?,
+        started: r.get(8)?,
+        ended: r.get(9)?,
+        metrics_json: r.get(10)?,
+        failure_kind: r.get(11)?,
+        failure_reason: r.get(12)?,
+        stderr_tail: r.get(13)?,
+    })
+}
+
+impl RawEvaluation {
+    fn finish(self) -> Result<EvaluationRecord, StoreError> {
+        let metrics = match &self.metrics_json {
+            None => BTreeMap::new(),
+            Some(json) => {
+                let m: BTreeMap<String, Option<f64>> = serde_json::from_str(json).map_err(|e| {
+                    StoreError::Damaged(format!("evaluation {}: metrics {json:?}: {e}", self.id))
+                })?;
+                m.into_iter()
+                    .filter_map(|(k, v)| v.filter(|x| x.is_finite()).map(|x| (k, x)))
+                    .collect()
+            }
+        };
+        Ok(EvaluationRecord {
+            id: self.id,
+            point_id: self.point_id,
+            point_idx: self.point_idx as u64,
+            replicate: self.replicate,
+            seed: from_sql_u64(self.seed),
+            status: EvalStatus::parse(&self.status)?,
+            attempts: self.attempts,
+            worker: self.worker,
+            started_unix_ms: self.started.map(from_sql_u64),
+            ended_unix_ms: self.ended.map(from_sql_u64),
+            metrics,
+            failure_kind: self.failure_kind,
+            failure_reason: self.failure_reason,
+            stderr_tail: self.stderr_tail,
+        })
+    }
+}
