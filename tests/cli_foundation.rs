@@ -1,0 +1,330 @@
+//! End to end: `tessera init`, `tessera check` and `tessera export` run as
+//! real processes in a fresh temporary folder.
+
+use std::collections::BTreeMap;
+use std::path::Path;
+use std::process::{Command, Output};
+
+use tessera_coordinator::spec;
+use tessera_coordinator::store::{NewPoint, Outcome, OutcomeResult, PointOrigin, Store};
+
+fn tessera(args: &[&str], dir: &Path) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_tessera"))
+        .args(args)
+        .current_dir(dir)
+        .output()
+        .expect("start tessera")
+}
+
+fn text(bytes: &[u8]) -> String {
+    String::from_utf8_lossy(bytes).into_owned()
+}
+
+#[test]
+fn init_then_check_succeed_for_every_built_in_model() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let out = tessera(&["init"], dir.path());
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let spec_text = std::fs::read_to_string(dir.path().join("sweep.toml")).expect("written");
+    assert!(spec_text.contains("name = \"tiling\""));
+    let out = tessera(&["check", "sweep.toml"], dir.path());
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let summary = text(&out.stdout);
+    assert!(summary.contains("sweep.toml: valid"), "{summary}");
+    assert!(summary.contains("height_sd"), "{summary}");
+    assert!(
+        text(&out.stderr).is_empty(),
+        "no warnings: {}",
+        text(&out.stderr)
+    );
+    for model in tessera_worker::models::catalogue() {
+        let sub = dir.path().join(model.name);
+        let out = tessera(
+            &["init", "--dir", model.name, "--model", model.name],
+            dir.path(),
+        );
+        assert!(
+            out.status.success(),
+            "{}: {}",
+            model.name,
+            text(&out.stderr)
+        );
+        let out = tessera(&["check", "sweep.toml"], &sub);
+        assert!(
+            out.status.success(),
+            "{}: {}",
+            model.name,
+            text(&out.stderr)
+        );
+        assert!(
+            text(&out.stderr).is_empty(),
+            "{}: {}",
+            model.name,
+            text(&out.stderr)
+        );
+    }
+}
+
+#[test]
+fn init_refuses_to_overwrite_without_force() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    std::fs::write(dir.path().join("sweep.toml"), "# mine\n").expect("write");
+    let out = tessera(&["init"], dir.path());
+    assert!(!out.status.success());
+    assert!(
+        text(&out.stderr).contains("already exists"),
+        "{}",
+        text(&out.stderr)
+    );
+    assert!(text(&out.stderr).contains("--force"));
+    let kept = std::fs::read_to_string(dir.path().join("sweep.toml")).expect("read");
+    assert_eq!(kept, "# mine\n");
+    let out = tessera(&["init", "--force", "--model", "branin"], dir.path());
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let replaced = std::fs::read_to_string(dir.path().join("sweep.toml")).expect("read");
+    assert!(replaced.contains("name = \"branin\""));
+}
+
+#[test]
+fn init_with_unknown_model_lists_the_built_in_ones() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let out = tessera(&["init", "--model", "tilling"], dir.path());
+    assert!(!out.status.success());
+    let err = text(&out.stderr);
+    assert!(err.contains("tiling, branin"), "{err}");
+    assert!(!dir.path().join("sweep.toml").exists());
+}
+
+#[test]
+fn an_error_on_line_three_is_reported_with_line_three() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let file = "name = \"t\"\nbudget = 20\nreplicates = 0\n[model]\nname = \"branin\"\n\
+                [params.x1]\nrange = [-5.0, 10.0]\n[objective]\nminimize = \"value\"\n";
+    std::fs::write(dir.path().join("bad.toml"), file).expect("write");
+    let out = tessera(&["check", "bad.toml"], dir.path());
+    assert_eq!(out.status.code(), Some(1));
+    let err = text(&out.stderr);
+    assert!(err.contains("bad.toml:3:14: replicates:"), "{err}");
+    assert!(text(&out.stdout).is_empty());
+}
+
+#[test]
+fn several_errors_are_all_reported() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let file = "name = \"t\"\nbudget = 0\n[model]\nname = \"branin\"\ntimeout = \"soon\"\n\
+                [params.x1]\nrange = [10.0, -5.0]\n";
+    std::fs::write(dir.path().join("bad.toml"), file).expect("write");
+    let out = tessera(&["check", "bad.toml"], dir.path());
+    assert_eq!(out.status.code(), Some(1));
+    let err = text(&out.stderr);
+    for needle in [
+        "bad.toml:2:10: budget:",
+        "bad.toml:5:11: model.timeout:",
+        "bad.toml:7:9: params.x1.range:",
+        "4 problems found",
+    ] {
+        assert!(err.contains(needle), "missing {needle:?} in\n{err}");
+    }
+}
+
+const DESIGN_SPEC: &str = r#"name = "design"
+seed = 7
+budget = 40
+initial = 13
+[model]
+name = "tiling"
+[params.height_mean]
+range = [20.0, 60.0]
+unit = "um"
+[params.density]
+range = [5.0, 50.0]
+scale = "log"
+[params.reach]
+range = [5, 12]
+integer = true
+[objective]
+minimize = "territory_cv"
+"#;
+
+fn design(dir: &Path, text: &str) -> String {
+    std::fs::write(dir.join("d.toml"), text).expect("write");
+    let out = tessera(&["check", "d.toml", "--design"], dir);
+    assert!(out.status.success(), "{}", text_of(&out.stderr));
+    assert!(
+        text_of(&out.stderr).contains("d.toml: valid"),
+        "summary on stderr"
+    );
+    text_of(&out.stdout)
+}
+
+fn text_of(b: &[u8]) -> String {
+    text(b)
+}
+
+#[test]
+fn check_design_prints_a_latin_hypercube_and_is_reproducible() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let csv = design(dir.path(), DESIGN_SPEC);
+    let mut lines = csv.lines();
+    assert_eq!(lines.next(), Some("height_mean,density,reach"));
+    let rows: Vec<Vec<f64>> = lines
+        .map(|l| l.split(',').map(|x| x.parse().expect("a number")).collect())
+        .collect();
+    assert_eq!(rows.len(), 13);
+    let spec = spec::parse(DESIGN_SPEC, "d.toml").expect("valid");
+    let n = rows.len();
+    // LHS property (McKay, Beckman & Conover 1979): on the unit-scaled values
+    // (log scale undone), each of the n strata of a continuous column holds
+    // exactly one point.
+    let unit: Vec<Vec<f64>> = rows.iter().map(|r| spec.to_unit(r)).collect();
+    for col in 0..2 {
+        let mut strata: Vec<usize> = unit
+            .iter()
+            .map(|u| ((u[col] * n as f64).floor() as usize).min(n - 1))
+            .collect();
+        strata.sort_unstable();
+        assert_eq!(strata, (0..n).collect::<Vec<_>>(), "column {col}");
+    }
+    // Integer column: 13 strata over 8 values (5..=12), 13/8 = 1.6 strata per
+    // value, so each value holds 1 to 3 points (counting argument), printed
+    // without decimals.
+    let mut counts = BTreeMap::new();
+    for line in csv.lines().skip(1) {
+        let reach = line.rsplit(',').next().expect("column");
+        assert!(!reach.contains('.'), "{reach}");
+        *counts.entry(reach.to_string()).or_insert(0) += 1;
+    }
+    assert_eq!(counts.len(), 8, "{counts:?}");
+    assert!(counts.values().all(|&c| (1..=3).contains(&c)), "{counts:?}");
+    assert_eq!(
+        design(dir.path(), DESIGN_SPEC),
+        csv,
+        "same seed, same design"
+    );
+    let other = design(dir.path(), &DESIGN_SPEC.replace("seed = 7", "seed = 8"));
+    assert_ne!(other, csv, "another seed, another design");
+}
+
+#[test]
+fn check_warns_about_inputs_the_model_does_not_take() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let file = DESIGN_SPEC
+        .replace("[params.reach]", "[params.hieght_sd]")
+        .replace("range = [5, 12]", "range = [0, 12]");
+    std::fs::write(dir.path().join("w.toml"), file).expect("write");
+    let out = tessera(&["check", "w.toml"], dir.path());
+    assert!(out.status.success(), "warnings do not fail the check");
+    let err = text(&out.stderr);
+    assert!(
+        err.contains("warning: parameter hieght_sd is not an input of model tiling"),
+        "{err}"
+    );
+}
+
+fn sample_db(path: &Path) {
+    let mut store = Store::open(path).expect("open");
+    let sweep = store
+        .create_sweep("design", DESIGN_SPEC, "d.toml", 7)
+        .expect("create");
+    let pts = [vec![20.0, 5.0, 5.0], vec![40.5, 12.25, 9.0]]
+        .into_iter()
+        .map(|values| NewPoint {
+            values,
+            origin: PointOrigin::Design,
+            batch: 0,
+        })
+        .collect::<Vec<_>>();
+    store.insert_points(sweep.id, &pts, 2, 7).expect("insert");
+    let evals = store.evaluations(sweep.id).expect("evals");
+    let metrics = BTreeMap::from([
+        ("territory_cv".to_string(), 0.25),
+        ("coverage".to_string(), 0.5),
+    ]);
+    store
+        .commit_outcomes(&[
+            Outcome {
+                evaluation_id: evals[0].id,
+                worker: "bench-1".to_string(),
+                started_unix_ms: 10,
+                ended_unix_ms: 20,
+                result: OutcomeResult::Done(metrics),
+            },
+            Outcome {
+                evaluation_id: evals[3].id,
+                worker: "bench-2".to_string(),
+                started_unix_ms: 30,
+                ended_unix_ms: 40,
+                result: OutcomeResult::Failed {
+                    kind: "timeout".to_string(),
+                    reason: "ran longer than 10m, stopped".to_string(),
+                    stderr_tail: String::new(),
+                    final_attempt: true,
+                },
+            },
+        ])
+        .expect("commit");
+}
+
+#[test]
+fn export_writes_one_row_per_evaluation() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    sample_db(&dir.path().join("s.db"));
+    let out = tessera(&["export", "--db", "s.db", "--out", "runs.csv"], dir.path());
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let csv = std::fs::read_to_string(dir.path().join("runs.csv")).expect("written");
+    let lines: Vec<&str> = csv.lines().collect();
+    assert_eq!(
+        lines[0],
+        "point,origin,replicate,seed,status,height_mean,density,reach,territory_cv,coverage,\
+         failure_kind,failure_reason,worker,attempts,started_unix_ms,ended_unix_ms"
+    );
+    assert_eq!(lines.len(), 5, "2 points x 2 replicates + header");
+    let seed = tessera_coordinator::seed::replicate_seed(7, 0, 0);
+    assert_eq!(
+        lines[1],
+        format!("0,design,0,{seed},done,20,5,5,0.25,0.5,,,bench-1,1,10,20")
+    );
+    assert!(lines[2].starts_with("0,design,1,"), "{}", lines[2]);
+    assert!(lines[2].contains(",queued,"), "{}", lines[2]);
+    assert!(
+        lines[4].ends_with(",timeout,\"ran longer than 10m, stopped\",bench-2,1,30,40"),
+        "{}",
+        lines[4]
+    );
+    let leftovers: Vec<_> = std::fs::read_dir(dir.path())
+        .expect("list")
+        .filter_map(Result::ok)
+        .filter(|e| e.file_name().to_string_lossy().contains(".tmp-"))
+        .collect();
+    assert!(leftovers.is_empty(), "no temporary file left");
+
+    let out = tessera(&["export", "--db", "s.db", "--units"], dir.path());
+    assert!(text(&out.stdout)
+        .starts_with("point,origin,replicate,seed,status,height_mean [um],density,reach,"));
+
+    let out = tessera(&["export", "--db", "s.db", "--format", "jsonl"], dir.path());
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let rows: Vec<serde_json::Value> = text(&out.stdout)
+        .lines()
+        .map(|l| serde_json::from_str(l).expect("JSON line"))
+        .collect();
+    assert_eq!(rows.len(), 4);
+    assert_eq!(rows[0]["params"]["height_mean"], 20.0);
+    assert_eq!(rows[0]["metrics"]["territory_cv"], 0.25);
+    assert_eq!(rows[0]["seed"], seed);
+    assert_eq!(rows[3]["status"], "failed");
+    assert_eq!(rows[3]["params"]["reach"], 9);
+}
+
+#[test]
+fn export_of_a_missing_database_fails_clearly() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let out = tessera(&["export", "--db", "nothing.db"], dir.path());
+    assert!(!out.status.success());
+    assert!(
+        text(&out.stderr).contains("no sweep database at nothing.db"),
+        "{}",
+        text(&out.stderr)
+    );
+    assert!(!dir.path().join("nothing.db").exists());
+}
