@@ -113,11 +113,125 @@ def acquisition():
     )
 
 
+# Bounds shared with tessera_surrogate::gp::bounds() (standardised outputs,
+# unit-cube inputs), so both optimisers search the same box.
+SIGNAL_BOUNDS = (1e-3, 1e3)
+LENGTH_BOUNDS = (1e-2, 1e2)
+NUGGET_BOUNDS = (1e-8, 10.0)
+
+
+def branin_unit(u):
+    """Branin on [-5,10] x [0,15] (Surjanovic & Bingham), inputs in [0,1]^2."""
+    x1 = -5.0 + 15.0 * u[:, 0]
+    x2 = 15.0 * u[:, 1]
+    b = 5.1 / (4 * np.pi**2)
+    c = 5 / np.pi
+    t = 1 / (8 * np.pi)
+    return (x2 - b * x1**2 + c * x1 - 6) ** 2 + 10 * (1 - t) * np.cos(x1) + 10
+
+
+def hartmann6(x):
+    """Hartmann-6 on [0,1]^6 (Surjanovic & Bingham)."""
+    alpha = np.array([1.0, 1.2, 3.0, 3.2])
+    A = np.array([[10, 3, 17, 3.5, 1.7, 8], [0.05, 10, 17, 0.1, 8, 14],
+                  [3, 3.5, 1.7, 10, 17, 8], [17, 8, 0.05, 10, 0.1, 14]])
+    P = 1e-4 * np.array([[1312, 1696, 5569, 124, 8283, 5886], [2329, 4135, 8307, 3736, 1004, 9991],
+                         [2348, 1451, 3522, 2883, 3047, 6650], [4047, 8828, 8732, 5743, 1091, 381]])
+    return -np.sum(alpha * np.exp(-np.sum(A * (x[:, None, :] - P) ** 2, axis=2)), axis=1)
+
+
+def sk_kernel(kind, c, l, w, fixed):
+    from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteKernel
+
+    cb = "fixed" if fixed else SIGNAL_BOUNDS
+    lb = "fixed" if fixed else LENGTH_BOUNDS
+    wb = "fixed" if fixed else NUGGET_BOUNDS
+    base = Matern(length_scale=l, nu=2.5, length_scale_bounds=lb) if kind == "matern52" \
+        else RBF(length_scale=l, length_scale_bounds=lb)
+    return ConstantKernel(c, constant_value_bounds=cb) * base + WhiteKernel(w, noise_level_bounds=wb)
+
+
+def sk_hyper(k):
+    """(signal_var, lengthscales, nugget) of a fitted sum kernel."""
+    return float(k.k1.k1.constant_value), np.atleast_1d(k.k1.k2.length_scale).tolist(), float(k.k2.noise_level)
+
+
+def gp():
+    """scikit-learn GaussianProcessRegressor references: ConstantKernel * Matern(nu=2.5, ARD)
+    + WhiteKernel, normalize_y=True."""
+    from sklearn.gaussian_process import GaussianProcessRegressor
+
+    rng = np.random.default_rng(11)
+    n, d = 25, 3
+    X = rng.random((n, d))
+    y = np.sin(3 * X[:, 0]) + X[:, 1] ** 2 - 0.5 * X[:, 2] + 0.05 * rng.standard_normal(n)
+    noise_var = 0.002 * rng.random(n)  # known per-point noise, natural units
+    Xs = rng.random((15, d))
+    ystd = np.std(y)
+    fixed = []
+    for kind in ["matern52", "se"]:
+        c, l, w = 1.3, [0.4, 0.7, 1.1], 1e-3
+        g = GaussianProcessRegressor(sk_kernel(kind, c, l, w, True), alpha=noise_var / ystd**2,
+                                     normalize_y=True, optimizer=None).fit(X, y)
+        mean, sd_obs = g.predict(Xs, return_std=True)
+        sd_f = np.sqrt(np.maximum(sd_obs**2 - w * ystd**2, 0.0))
+        fixed.append({
+            "kernel": kind, "signal_var": c, "lengthscales": l, "nugget": w,
+            "lml": float(g.log_marginal_likelihood_value_),
+            "mean": mean.tolist(), "sd": sd_f.tolist(), "sd_obs": sd_obs.tolist(),
+        })
+    # Optimised: same data, 5 restarts.
+    g = GaussianProcessRegressor(sk_kernel("matern52", 1.0, [0.3 * np.sqrt(d)] * d, 1e-3, False),
+                                 alpha=noise_var / ystd**2, normalize_y=True,
+                                 n_restarts_optimizer=5, random_state=0).fit(X, y)
+    c, l, w = sk_hyper(g.kernel_)
+    optimised = {"lml": float(g.log_marginal_likelihood_value_), "signal_var": c, "lengthscales": l, "nugget": w}
+
+    # Out-of-sample accuracy on Branin and Hartmann-6: 10 d training points
+    # (scipy LHS), 500 uniform test points.
+    tests = []
+    for name, f, dd in [("branin", branin_unit, 2), ("hartmann6", hartmann6, 6)]:
+        ntr = 10 * dd
+        Xtr = qmc.LatinHypercube(dd, rng=np.random.default_rng(5)).random(ntr)
+        Xte = np.random.default_rng(6).random((500, dd))
+        ytr, yte = f(Xtr), f(Xte)
+        g = GaussianProcessRegressor(sk_kernel("matern52", 1.0, [0.3 * np.sqrt(dd)] * dd, 1e-3, False),
+                                     normalize_y=True, n_restarts_optimizer=5, random_state=0).fit(Xtr, ytr)
+        mu, sd = g.predict(Xte, return_std=True)
+        c, l, w = sk_hyper(g.kernel_)
+        tests.append({
+            "name": name, "x_train": Xtr.tolist(), "y_train": ytr.tolist(),
+            "x_test": Xte.tolist(), "y_test": yte.tolist(),
+            "sklearn_rmse": float(np.sqrt(np.mean((mu - yte) ** 2))),
+            "sklearn_coverage95": float(np.mean(np.abs(mu - yte) <= 1.959963984540054 * sd)),
+            "sklearn_lml": float(g.log_marginal_likelihood_value_),
+            "sklearn_hyper": {"signal_var": c, "lengthscales": l, "nugget": w},
+        })
+
+    # REFERENCES.md fixture, no output scaling.
+    X6 = np.linspace(0, 1, 6)[:, None]
+    y6 = np.sin(2 * np.pi * X6[:, 0])
+    g6 = GaussianProcessRegressor(sk_kernel("matern52", 1.5, 0.3, 0.01, True), alpha=0.0,
+                                  optimizer=None).fit(X6, y6)
+    xs6 = np.array([[0.1], [0.45], [0.9]])
+    m6, s6 = g6.predict(xs6, return_std=True)
+    six = {"lml": float(g6.log_marginal_likelihood_value_), "mean": m6.tolist(),
+           "sd": np.sqrt(s6**2 - 0.01).tolist(), "sd_obs": s6.tolist()}
+
+    write("gp_sklearn.json", {
+        "versions": versions(),
+        "data": {"x": X.tolist(), "y": y.tolist(), "noise_var": noise_var.tolist(), "x_star": Xs.tolist()},
+        "fixed": fixed, "optimised": optimised, "bounds": {
+            "signal_var": SIGNAL_BOUNDS, "lengthscale": LENGTH_BOUNDS, "nugget": NUGGET_BOUNDS},
+        "out_of_sample": tests, "six_point": six,
+    })
+
+
 if __name__ == "__main__":
     what = sys.argv[1] if len(sys.argv) > 1 else "all"
     if what in ("design", "all"):
         design()
     if what in ("acquisition", "all"):
         acquisition()
-    if what in ("gp", "all") and "gp" in globals():
-        globals()["gp"]()
+    if what in ("gp", "all"):
+        gp()

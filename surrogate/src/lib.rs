@@ -8,3 +8,4 @@
 
 pub mod acquisition;
 pub mod design;
+pub mod gp;
