@@ -328,3 +328,13 @@ fn export_of_a_missing_database_fails_clearly() {
     );
     assert!(!dir.path().join("nothing.db").exists());
 }
+
+#[test]
+fn the_example_sweep_files_check_cleanly() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    for name in ["examples/tiling-height.toml", "examples/branin.toml"] {
+        let out = tessera(&["check", name], root);
+        assert!(out.status.success(), "{name}: {}", text(&out.stderr));
+        assert!(text(&out.stderr).is_empty(), "{name}: {}", text(&out.stderr));
+    }
+}

@@ -127,17 +127,17 @@ fn other_inputs(s: &mut String, model: &ModelInfo, used: &[&str]) {
         "# Other inputs of {} (each runs at its default unless swept or fixed):",
         model.name
     );
+    let ranges: Vec<String> = rest
+        .iter()
+        .map(|i| format!("[{}, {}]{}", i.lo, i.hi, unit_comment(i.unit)))
+        .collect();
     let width = rest.iter().map(|i| i.name.len()).max().unwrap_or(0);
-    for i in rest {
+    let rwidth = ranges.iter().map(|r| r.chars().count()).max().unwrap_or(0);
+    for (i, range) in rest.iter().zip(&ranges) {
         let _ = writeln!(
             s,
-            "#   {:width$}  [{}, {}]{}  default {}  {}",
-            i.name,
-            i.lo,
-            i.hi,
-            unit_comment(i.unit),
-            i.default,
-            i.description
+            "#   {:width$}  {range:rwidth$}  default {:<6}  {}",
+            i.name, i.default, i.description
         );
     }
     s.push('\n');
