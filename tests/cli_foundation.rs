@@ -335,6 +335,10 @@ fn the_example_sweep_files_check_cleanly() {
     for name in ["examples/tiling-height.toml", "examples/branin.toml"] {
         let out = tessera(&["check", name], root);
         assert!(out.status.success(), "{name}: {}", text(&out.stderr));
-        assert!(text(&out.stderr).is_empty(), "{name}: {}", text(&out.stderr));
+        assert!(
+            text(&out.stderr).is_empty(),
+            "{name}: {}",
+            text(&out.stderr)
+        );
     }
 }
