@@ -295,3 +295,43 @@ fn small_and_one_dimensional_data_fit() {
     let p = gp.predict(&[vec![0.5]])[0];
     assert!((p.mean - 2.0).abs() < 1e-6 && p.sd.is_finite());
 }
+
+#[test]
+fn isotropic_se_matches_friedrich() {
+    // Cross-check with the friedrich 0.6 crate (independent implementation on nalgebra):
+    // SquaredExp k = ampl exp(-r^2 / (2 ls^2)), noise given as a standard deviation,
+    // ConstantPrior as the mean; predict_variance is the latent variance.
+    use friedrich::gaussian_process::GaussianProcess;
+    use friedrich::kernel::SquaredExp;
+    use friedrich::prior::ConstantPrior;
+    let f = fixture();
+    let (obs, xs) = data(&f);
+    let (mean, sf2, l, noise_sd) = (0.3, 1.7, 0.45, 0.05);
+    let gp_f = GaussianProcess::new(
+        ConstantPrior::new(mean),
+        SquaredExp::new(l, sf2),
+        noise_sd,
+        None,
+        obs.x.clone(),
+        obs.y.clone(),
+    );
+    let hyper = Hyper {
+        mean,
+        signal_var: sf2,
+        lengthscales: vec![l; 3],
+        nugget: noise_sd * noise_sd,
+    };
+    let ours = Observations::new(obs.x.clone(), obs.y.clone());
+    let gp = Gp::with_hyper(&ours, KernelKind::SquaredExponential, hyper, false).expect("gp");
+    let (m_f, v_f) = gp_f.predict_mean_variance(&xs);
+    let p = gp.predict(&xs);
+    for i in 0..xs.len() {
+        assert!(
+            (p[i].mean - m_f[i]).abs() < 1e-9,
+            "mean {i}: {} vs {}",
+            p[i].mean,
+            m_f[i]
+        );
+        assert!((p[i].sd * p[i].sd - v_f[i]).abs() < 1e-9, "var {i}");
+    }
+}
