@@ -81,7 +81,17 @@ pub(super) fn read(text: &str, file: &str) -> Result<Spec, SpecErrors> {
     let spec = r.spec(root.get_ref());
     match spec {
         Some(spec) if r.errors.is_empty() => Ok(spec),
-        _ => Err(r.finish()),
+        _ => {
+            if r.errors.is_empty() {
+                // Every path that gives up reports why; this is a safety net.
+                r.error(
+                    0,
+                    "",
+                    "the sweep file could not be read (no details available)",
+                );
+            }
+            Err(r.finish())
+        }
     }
 }
 
