@@ -36,6 +36,14 @@ enum Command {
     Check(cmd::check::CheckArgs),
     /// Run one simulation and print its metrics.
     Simulate(cmd::simulate::SimulateArgs),
+    /// Run a whole sweep on this machine (coordinator and workers in one process).
+    Run(cmd::run::RunArgs),
+    /// Start a coordinator for workers on other machines.
+    Serve(cmd::serve::ServeArgs),
+    /// Run simulations for a coordinator until told to stop.
+    Worker(cmd::worker::WorkerArgs),
+    /// Show how far a sweep has got.
+    Status(cmd::status::StatusArgs),
     /// Write every evaluation in a sweep database as CSV or JSON lines.
     Export(cmd::export::ExportArgs),
 }
@@ -50,6 +58,10 @@ fn main() -> ExitCode {
         Command::Init(a) => cmd::init::run(a),
         Command::Check(a) => cmd::check::run(a),
         Command::Simulate(a) => cmd::simulate::run(a),
+        Command::Run(a) => cmd::run::run(a),
+        Command::Serve(a) => cmd::serve::run(a),
+        Command::Worker(a) => cmd::worker::run(a),
+        Command::Status(a) => cmd::status::run(a),
         Command::Export(a) => cmd::export::run(a),
     };
     match outcome {

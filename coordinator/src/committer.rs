@@ -15,15 +15,20 @@ use tokio::sync::{mpsc, oneshot};
 /// Most requests folded into one transaction.
 const MAX_GROUP: usize = 256;
 
+/// Reply channel of a commit request.
+type CommitReply = oneshot::Sender<Result<Vec<CommitResult>, String>>;
+/// Reply channel of an insert request: the new points and their evaluations.
+type InsertReply = oneshot::Sender<Result<(Vec<PointRecord>, Vec<EvaluationRecord>), String>>;
+
 /// A request to the store thread.
 enum Request {
     Commit {
         outcomes: Vec<Outcome>,
-        reply: oneshot::Sender<Result<Vec<CommitResult>, String>>,
+        reply: CommitReply,
     },
     InsertPoints {
         points: Vec<NewPoint>,
-        reply: oneshot::Sender<Result<(Vec<PointRecord>, Vec<EvaluationRecord>), String>>,
+        reply: InsertReply,
     },
     Call {
         job: Box<dyn FnOnce(&mut Store) + Send>,
@@ -130,8 +135,7 @@ fn store_thread(
                 Err(_) => break,
             }
         }
-        let mut commits: Vec<(Vec<Outcome>, oneshot::Sender<Result<Vec<CommitResult>, String>>)> =
-            Vec::new();
+        let mut commits: Vec<(Vec<Outcome>, CommitReply)> = Vec::new();
         for r in batch {
             match r {
                 Request::Commit { outcomes, reply } => commits.push((outcomes, reply)),
@@ -145,7 +149,10 @@ fn store_thread(
         if commits.is_empty() {
             continue;
         }
-        let all: Vec<Outcome> = commits.iter().flat_map(|(o, _)| o.iter().cloned()).collect();
+        let all: Vec<Outcome> = commits
+            .iter()
+            .flat_map(|(o, _)| o.iter().cloned())
+            .collect();
         match store.commit_outcomes(&all) {
             Ok(results) => {
                 let mut it = results.into_iter();

@@ -6,8 +6,7 @@
 use crate::committer::{CommitError, StoreHandle};
 use crate::planner;
 use crate::scheduler::{
-    unix_ms, Decided, Grant, JoinInfo, LeaseTimes, Report, ReportOutcome, ScheduleError,
-    Scheduler,
+    unix_ms, Decided, Grant, JoinInfo, LeaseTimes, Report, ReportOutcome, ScheduleError, Scheduler,
 };
 use crate::spec::{self, Spec};
 use crate::status::SweepStatus;
@@ -43,7 +42,9 @@ pub enum OpenError {
         stored_name: String,
     },
     /// The stored spec no longer parses (written by another version).
-    #[error("the sweep file stored in {db} is no longer valid for this version of tessera:\n{errors}")]
+    #[error(
+        "the sweep file stored in {db} is no longer valid for this version of tessera:\n{errors}"
+    )]
     StoredSpec {
         /// Database path.
         db: String,
@@ -231,7 +232,11 @@ impl Engine {
     }
 
     /// Leases up to `free` evaluations; `finished` is true when the sweep is done.
-    pub fn request_work(&self, worker_id: &str, free: u32) -> Result<(Vec<Grant>, bool), EngineError> {
+    pub fn request_work(
+        &self,
+        worker_id: &str,
+        free: u32,
+    ) -> Result<(Vec<Grant>, bool), EngineError> {
         let mut s = lock(&self.sched);
         if self.draining.load(Ordering::SeqCst) {
             s.renew(worker_id, &[], Instant::now())?;
@@ -265,7 +270,12 @@ impl Engine {
     /// Reports from a worker id the coordinator does not know (it joined
     /// before a restart) are accepted too: results are keyed by evaluation,
     /// and the first result for an evaluation wins.
-    pub async fn report(&self, worker_id: &str, worker_name: &str, reports: Vec<Report>) -> Result<Vec<i64>, EngineError> {
+    pub async fn report(
+        &self,
+        worker_id: &str,
+        worker_name: &str,
+        reports: Vec<Report>,
+    ) -> Result<Vec<i64>, EngineError> {
         let decided: Vec<Decided> = lock(&self.sched).decide(reports);
         let outcomes: Vec<Outcome> = decided
             .iter()
@@ -290,7 +300,8 @@ impl Engine {
             })
             .collect();
         let committed = self.store.commit(outcomes).await?;
-        let acked = lock(&self.sched).apply_committed(worker_id, &decided, &committed, Instant::now());
+        let acked =
+            lock(&self.sched).apply_committed(worker_id, &decided, &committed, Instant::now());
         self.plan_wake.notify_one();
         Ok(acked)
     }

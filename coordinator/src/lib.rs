@@ -10,6 +10,15 @@
 //! I/O), and results become durable through [`committer`] (the only SQLite
 //! writer while serving, with group commit) before they are acknowledged.
 
+pub mod committer;
+pub mod engine;
+pub mod fitter;
+pub mod planner;
+pub mod query;
+pub mod scheduler;
 pub mod seed;
+pub mod server;
+pub mod service;
 pub mod spec;
+pub mod status;
 pub mod store;

@@ -364,7 +364,13 @@ impl Scheduler {
         Ok(grants)
     }
 
-    fn grant(&mut self, eid: i64, lease_id: String, worker_id: &str, now: Instant) -> Option<Grant> {
+    fn grant(
+        &mut self,
+        eid: i64,
+        lease_id: String,
+        worker_id: &str,
+        now: Instant,
+    ) -> Option<Grant> {
         let deadline = now + self.times.lease;
         let p = self.pending.get_mut(&eid)?;
         p.lease = Some(Held {
@@ -501,7 +507,10 @@ impl Scheduler {
             }
         }
         if !expired.is_empty() {
-            tracing::warn!(count = expired.len(), "leases expired; evaluations queued again");
+            tracing::warn!(
+                count = expired.len(),
+                "leases expired; evaluations queued again"
+            );
         }
         expired.len()
     }
@@ -615,7 +624,11 @@ impl Scheduler {
         if left == 0 {
             return None;
         }
-        let learned = self.points.values().filter(|p| !p.replicates.is_empty()).count();
+        let learned = self
+            .points
+            .values()
+            .filter(|p| !p.replicates.is_empty())
+            .count();
         if learned == 0 && !self.pending.is_empty() {
             return None;
         }
@@ -680,8 +693,7 @@ impl Scheduler {
                     } else {
                         0.0
                     },
-                    connected: !w.left
-                        && now.duration_since(w.last_contact) < self.times.lease * 2,
+                    connected: !w.left && now.duration_since(w.last_contact) < self.times.lease * 2,
                 }
             })
             .collect();
@@ -717,7 +729,11 @@ pub fn lease_evaluation(lease_id: &str) -> Option<i64> {
 /// Failure reasons grouped for `status`: the first line, at most 120 chars.
 pub fn group_reason(reason: &str) -> String {
     let line = reason.lines().next().unwrap_or("").trim();
-    let line = if line.is_empty() { "unknown failure" } else { line };
+    let line = if line.is_empty() {
+        "unknown failure"
+    } else {
+        line
+    };
     line.chars().take(120).collect()
 }
 

@@ -105,7 +105,10 @@ pub async fn serve(
 
     let (health, health_service) = tonic_health::server::health_reporter();
     health
-        .set_service_status("tessera.v1.Coordinator", tonic_health::ServingStatus::Serving)
+        .set_service_status(
+            "tessera.v1.Coordinator",
+            tonic_health::ServingStatus::Serving,
+        )
         .await;
     health
         .set_service_status("", tonic_health::ServingStatus::Serving)
@@ -117,7 +120,8 @@ pub async fn serve(
 
     let mut builder = Server::builder();
     if let Some((cert, key)) = &opts.tls {
-        builder = builder.tls_config(ServerTlsConfig::new().identity(Identity::from_pem(cert, key)))?;
+        builder =
+            builder.tls_config(ServerTlsConfig::new().identity(Identity::from_pem(cert, key)))?;
     }
     let drain_engine = engine.clone();
     let shutdown = async move {

@@ -80,7 +80,9 @@ fn status_of(e: EngineError) -> Status {
         EngineError::Schedule(e @ ScheduleError::ModelNotOffered { .. }) => {
             Status::failed_precondition(e.to_string())
         }
-        EngineError::Schedule(e @ ScheduleError::NoSlots) => Status::invalid_argument(e.to_string()),
+        EngineError::Schedule(e @ ScheduleError::NoSlots) => {
+            Status::invalid_argument(e.to_string())
+        }
         EngineError::Commit(e) => Status::unavailable(format!("results not stored: {e}")),
     }
 }
@@ -188,7 +190,11 @@ pub fn status_from_reply(r: pb::StatusReply) -> SweepStatus {
                 connected: w.connected,
             })
             .collect(),
-        failures: r.failures.into_iter().map(|f| (f.reason, f.count)).collect(),
+        failures: r
+            .failures
+            .into_iter()
+            .map(|f| (f.reason, f.count))
+            .collect(),
         best: r.best.map(|b| crate::status::BestPoint {
             point_id: b.point_id as i64,
             params: b.params.into_iter().collect(),
@@ -213,7 +219,11 @@ impl Coordinator for CoordinatorService {
                 env!("CARGO_PKG_VERSION")
             )));
         }
-        let name = if r.name.is_empty() { r.host.clone() } else { r.name.clone() };
+        let name = if r.name.is_empty() {
+            r.host.clone()
+        } else {
+            r.name.clone()
+        };
         let info = JoinInfo {
             name: name.clone(),
             host: r.host,
@@ -258,7 +268,10 @@ impl Coordinator for CoordinatorService {
         }))
     }
 
-    async fn renew(&self, req: Request<pb::RenewRequest>) -> Result<Response<pb::RenewReply>, Status> {
+    async fn renew(
+        &self,
+        req: Request<pb::RenewRequest>,
+    ) -> Result<Response<pb::RenewReply>, Status> {
         let r = req.into_inner();
         let lost = self
             .engine
@@ -270,7 +283,10 @@ impl Coordinator for CoordinatorService {
         }))
     }
 
-    async fn report(&self, req: Request<pb::ReportRequest>) -> Result<Response<pb::ReportReply>, Status> {
+    async fn report(
+        &self,
+        req: Request<pb::ReportRequest>,
+    ) -> Result<Response<pb::ReportReply>, Status> {
         let r = req.into_inner();
         let reports = r
             .results
@@ -301,7 +317,10 @@ impl Coordinator for CoordinatorService {
         Ok(Response::new(pb::HandBackReply {}))
     }
 
-    async fn leave(&self, req: Request<pb::LeaveRequest>) -> Result<Response<pb::LeaveReply>, Status> {
+    async fn leave(
+        &self,
+        req: Request<pb::LeaveRequest>,
+    ) -> Result<Response<pb::LeaveReply>, Status> {
         let r = req.into_inner();
         match self.engine.leave(&r.worker_id) {
             Ok(()) | Err(EngineError::Schedule(ScheduleError::UnknownWorker(_))) => {}
@@ -311,7 +330,10 @@ impl Coordinator for CoordinatorService {
         Ok(Response::new(pb::LeaveReply {}))
     }
 
-    async fn status(&self, _req: Request<pb::StatusRequest>) -> Result<Response<pb::StatusReply>, Status> {
+    async fn status(
+        &self,
+        _req: Request<pb::StatusRequest>,
+    ) -> Result<Response<pb::StatusReply>, Status> {
         Ok(Response::new(status_reply(self.engine.status())))
     }
 

@@ -6,7 +6,12 @@ use anyhow::Context;
 pub mod check;
 pub mod export;
 pub mod init;
+pub mod net;
+pub mod run;
+pub mod serve;
 pub mod simulate;
+pub mod status;
+pub mod worker;
 
 /// Examples shown at the end of `tessera --help`.
 pub const EXAMPLES: &str = "\
@@ -14,6 +19,10 @@ Examples:
   tessera init                         write sweep.toml for the built-in tiling model
   tessera check sweep.toml --design    validate it and print the initial design as CSV
   tessera simulate tiling --json       one run of the built-in model
+  tessera run sweep.toml               run the whole sweep on this machine
+  tessera serve sweep.toml --db sweep.db --listen 0.0.0.0:7300 --token-file lab.token
+  tessera worker --coordinator http://HOST:7300 --token-file lab.token
+  tessera status --db sweep.db         progress and the best point so far
   tessera export --db sweep.db         every evaluation as CSV";
 
 /// Log output format.

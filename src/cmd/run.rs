@@ -72,7 +72,11 @@ fn resolve_command(words: &[String], spec_dir: &Path) -> Vec<String> {
 fn progress_line(st: &SweepStatus, started: Instant, done_at_start: u64) -> String {
     let minutes = started.elapsed().as_secs_f64() / 60.0;
     let new = (st.done + st.failed).saturating_sub(done_at_start);
-    let rate = if minutes > 0.0 { new as f64 / minutes } else { 0.0 };
+    let rate = if minutes > 0.0 {
+        new as f64 / minutes
+    } else {
+        0.0
+    };
     let left = st.evaluations_total.saturating_sub(st.done + st.failed);
     let eta = if rate > 0.0 {
         let secs = (left as f64 / rate * 60.0).round() as u64;
@@ -160,7 +164,9 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
             };
             let stop = stop_workers.clone();
             let runners = runners.clone();
-            workers.spawn(async move { client::run(opts, runners, async move { stop.cancelled().await }).await });
+            workers.spawn(async move {
+                client::run(opts, runners, async move { stop.cancelled().await }).await
+            });
         }
         let st = engine.status();
         let bar = ProgressBar::new(st.evaluations_total);
@@ -191,7 +197,12 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
             bar.set_position(st.done + st.failed);
             bar.set_message(progress_line(&st, started, done_at_start));
             if bar.is_hidden() && last_line.elapsed() > Duration::from_secs(10) {
-                eprintln!("{}/{} evaluations · {}", st.done + st.failed, st.evaluations_total, progress_line(&st, started, done_at_start));
+                eprintln!(
+                    "{}/{} evaluations · {}",
+                    st.done + st.failed,
+                    st.evaluations_total,
+                    progress_line(&st, started, done_at_start)
+                );
                 last_line = Instant::now();
             }
             if st.finished || workers.is_empty() {

@@ -56,7 +56,11 @@ pub struct ServeArgs {
 /// Runs `tessera serve`.
 pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
     let addr = net::listen_addr(&args.listen)?;
-    let token = args.token_file.as_deref().map(net::read_token).transpose()?;
+    let token = args
+        .token_file
+        .as_deref()
+        .map(net::read_token)
+        .transpose()?;
     if !addr.ip().is_loopback() && token.is_none() && !args.insecure {
         bail!(
             "refusing to listen on {addr} without a token: anyone who can reach this port could take work, \
@@ -77,13 +81,18 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
         );
     }
     if !addr.ip().is_loopback() && token.is_none() {
-        eprintln!("warning: --insecure: any machine that can reach {addr} can take work and send results");
+        eprintln!(
+            "warning: --insecure: any machine that can reach {addr} can take work and send results"
+        );
     }
     let spec_text = std::fs::read_to_string(&args.spec)
         .with_context(|| format!("cannot read the sweep file {}", args.spec.display()))?;
     let lease: Duration = args.lease.into();
     if lease < Duration::from_secs(1) {
-        bail!("--lease {} is too short; use at least 1s (30s is a good default)", args.lease);
+        bail!(
+            "--lease {} is too short; use at least 1s (30s is a good default)",
+            args.lease
+        );
     }
     let engine = Engine::open(OpenOptions {
         db: args.db.clone(),

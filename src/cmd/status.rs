@@ -40,8 +40,12 @@ pub fn from_db(db: &std::path::Path) -> anyhow::Result<(SweepStatus, Spec)> {
     let sweep = store
         .sweep()?
         .with_context(|| format!("{} holds no sweep yet", db.display()))?;
-    let spec = spec::parse(&sweep.spec_text, &sweep.spec_file)
-        .map_err(|e| anyhow::anyhow!("the sweep file stored in {} is not valid: {e}", db.display()))?;
+    let spec = spec::parse(&sweep.spec_text, &sweep.spec_file).map_err(|e| {
+        anyhow::anyhow!(
+            "the sweep file stored in {} is not valid: {e}",
+            db.display()
+        )
+    })?;
     let points = store.points(sweep.id)?;
     let evals = store.evaluations(sweep.id)?;
     Ok((status::from_records(&spec, &points, &evals), spec))
@@ -50,7 +54,9 @@ pub fn from_db(db: &std::path::Path) -> anyhow::Result<(SweepStatus, Spec)> {
 async fn from_coordinator(url: &str, token: Option<String>) -> anyhow::Result<SweepStatus> {
     use tessera_proto::v1::coordinator_client::CoordinatorClient;
     let channel = tonic::transport::Endpoint::from_shared(url.to_string())
-        .with_context(|| format!("--coordinator {url:?} is not a URL; use for example http://10.0.0.5:7300"))?
+        .with_context(|| {
+            format!("--coordinator {url:?} is not a URL; use for example http://10.0.0.5:7300")
+        })?
         .connect_timeout(std::time::Duration::from_secs(5))
         .connect()
         .await
@@ -58,16 +64,18 @@ async fn from_coordinator(url: &str, token: Option<String>) -> anyhow::Result<Sw
     let mut client = CoordinatorClient::new(channel);
     let mut req = tonic::Request::new(tessera_proto::v1::StatusRequest {});
     if let Some(t) = token {
-        let v = format!("Bearer {t}")
-            .parse()
-            .map_err(|_| anyhow::anyhow!("the token contains characters not allowed in a header"))?;
+        let v = format!("Bearer {t}").parse().map_err(|_| {
+            anyhow::anyhow!("the token contains characters not allowed in a header")
+        })?;
         req.metadata_mut().insert("authorization", v);
     }
     let reply = client
         .status(req)
         .await
         .map_err(|s| anyhow::anyhow!("the coordinator answered: {}", s.message()))?;
-    Ok(tessera_coordinator::service::status_from_reply(reply.into_inner()))
+    Ok(tessera_coordinator::service::status_from_reply(
+        reply.into_inner(),
+    ))
 }
 
 fn unit_of<'a>(spec: Option<&'a Spec>, name: &str) -> &'a str {
@@ -94,7 +102,10 @@ pub fn print_human(st: &SweepStatus, spec: Option<&Spec>) {
     );
     match &st.best {
         Some(b) => {
-            println!("best       {} = {:.6} at point {}", st.objective_label, b.objective, b.point_id);
+            println!(
+                "best       {} = {:.6} at point {}",
+                st.objective_label, b.objective, b.point_id
+            );
             for (k, v) in &b.params {
                 println!("             {k} = {v:.6} {}", unit_of(spec, k));
             }
@@ -118,7 +129,11 @@ pub fn print_human(st: &SweepStatus, spec: Option<&Spec>) {
                 w.running,
                 w.completed,
                 w.runs_per_minute,
-                if w.connected { format!("{ago}s ago") } else { format!("lost {ago}s") }
+                if w.connected {
+                    format!("{ago}s ago")
+                } else {
+                    format!("gone {ago}s")
+                }
             );
         }
     }
@@ -139,7 +154,11 @@ pub fn run(args: StatusArgs) -> anyhow::Result<ExitCode> {
             (st, Some(spec))
         }
         (None, Some(url)) => {
-            let token = args.token_file.as_deref().map(net::read_token).transpose()?;
+            let token = args
+                .token_file
+                .as_deref()
+                .map(net::read_token)
+                .transpose()?;
             let rt = tokio::runtime::Runtime::new().context("cannot start the async runtime")?;
             (rt.block_on(from_coordinator(url, token))?, None)
         }
@@ -149,7 +168,9 @@ pub fn run(args: StatusArgs) -> anyhow::Result<ExitCode> {
         let mut v = serde_json::to_value(&st)?;
         if let Some(obj) = v.as_object_mut() {
             let best = match &st.best {
-                Some(b) => serde_json::json!({"params": b.params, "objective": b.objective, "point_id": b.point_id}),
+                Some(b) => {
+                    serde_json::json!({"params": b.params, "objective": b.objective, "point_id": b.point_id})
+                }
                 None => serde_json::Value::Null,
             };
             obj.insert("best".into(), best);

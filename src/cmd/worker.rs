@@ -65,7 +65,13 @@ fn default_spool(name: &str) -> Option<PathBuf> {
         .or_else(|| std::env::var_os("HOME").map(|h| PathBuf::from(h).join(".local/state")))?;
     let safe: String = name
         .chars()
-        .map(|c| if c.is_ascii_alphanumeric() || c == '-' || c == '_' { c } else { '_' })
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || c == '-' || c == '_' {
+                c
+            } else {
+                '_'
+            }
+        })
         .collect();
     Some(base.join("tessera").join(format!("spool-{safe}.jsonl")))
 }
@@ -76,9 +82,15 @@ pub fn run(args: WorkerArgs) -> anyhow::Result<ExitCode> {
     for c in &args.commands {
         commands.push(parse_command_arg(c).map_err(|e| anyhow::anyhow!("--command {c:?}: {e}"))?);
     }
-    let token = args.token_file.as_deref().map(net::read_token).transpose()?;
+    let token = args
+        .token_file
+        .as_deref()
+        .map(net::read_token)
+        .transpose()?;
     let ca_pem = match &args.ca {
-        Some(p) => Some(std::fs::read(p).with_context(|| format!("cannot read --ca {}", p.display()))?),
+        Some(p) => {
+            Some(std::fs::read(p).with_context(|| format!("cannot read --ca {}", p.display()))?)
+        }
         None => None,
     };
     let slots = match args.slots {
@@ -87,7 +99,10 @@ pub fn run(args: WorkerArgs) -> anyhow::Result<ExitCode> {
         None => std::thread::available_parallelism().map_or(1, |n| n.get() as u32),
     };
     let host = net::host_name();
-    let name = args.name.clone().unwrap_or_else(|| format!("{host}-{}", std::process::id()));
+    let name = args
+        .name
+        .clone()
+        .unwrap_or_else(|| format!("{host}-{}", std::process::id()));
     let spool = args.spool.clone().or_else(|| default_spool(&name));
     let mut cfg = RunnerConfig {
         commands,
@@ -111,7 +126,10 @@ pub fn run(args: WorkerArgs) -> anyhow::Result<ExitCode> {
         max_backoff: std::time::Duration::from_secs(30),
     };
     let rt = tokio::runtime::Runtime::new().context("cannot start the async runtime")?;
-    eprintln!("tessera worker {name} with {slots} slots, coordinator {}", args.coordinator);
+    eprintln!(
+        "tessera worker {name} with {slots} slots, coordinator {}",
+        args.coordinator
+    );
     let result = rt.block_on(client::run(opts, runners, net::stop_signal()));
     match result {
         Ok(s) => {
@@ -120,7 +138,11 @@ pub fn run(args: WorkerArgs) -> anyhow::Result<ExitCode> {
                 s.delivered,
                 s.handed_back,
                 s.undelivered,
-                if s.sweep_finished { " (sweep finished)" } else { "" }
+                if s.sweep_finished {
+                    " (sweep finished)"
+                } else {
+                    ""
+                }
             );
             Ok(ExitCode::SUCCESS)
         }

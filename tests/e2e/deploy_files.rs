@@ -16,7 +16,10 @@ fn command_lines(text: &str) -> Vec<(String, Vec<String>)> {
             .map(|w| w.trim_matches('"').to_string())
             .filter(|w| !w.is_empty())
             .collect();
-        let Some(start) = words.iter().position(|w| w.ends_with("tessera") || w == "args:") else {
+        let Some(start) = words
+            .iter()
+            .position(|w| w.ends_with("tessera") || w == "args:")
+        else {
             continue;
         };
         let rest = &words[start + 1..];
@@ -29,7 +32,11 @@ fn command_lines(text: &str) -> Vec<(String, Vec<String>)> {
             })
             .map(|(_, w)| w.clone());
         if let Some(sub) = sub {
-            let flags = rest.iter().filter(|w| w.starts_with("--")).cloned().collect();
+            let flags = rest
+                .iter()
+                .filter(|w| w.starts_with("--"))
+                .cloned()
+                .collect();
             out.push((sub, flags));
         }
     }
@@ -52,7 +59,10 @@ fn deploy_files_use_only_real_options_and_scripts_parse() {
         let lines = command_lines(&text);
         assert!(!lines.is_empty(), "{f}: no tessera command found");
         for (sub, flags) in lines {
-            let help = tessera().args([sub.as_str(), "--help"]).output().expect("help");
+            let help = tessera()
+                .args([sub.as_str(), "--help"])
+                .output()
+                .expect("help");
             let global = tessera().arg("--help").output().expect("help");
             let known = format!(
                 "{}{}",
@@ -60,7 +70,10 @@ fn deploy_files_use_only_real_options_and_scripts_parse() {
                 String::from_utf8_lossy(&global.stdout)
             );
             for flag in flags {
-                assert!(known.contains(&flag), "{f}: `tessera {sub}` has no option {flag}");
+                assert!(
+                    known.contains(&flag),
+                    "{f}: `tessera {sub}` has no option {flag}"
+                );
                 checked += 1;
             }
         }

@@ -19,7 +19,7 @@ fn worker(dir: &std::path::Path, port: u16, name: &str, slots: u32, extra: &[&st
     let mut cmd = tessera();
     cmd.args(["--log-level", "info", "worker", "--coordinator"])
         .arg(format!("http://127.0.0.1:{port}"))
-        .args(["--slots", &slots.to_string(), "--name", name, "--grace", "5s"])
+        .args(["--slots", &slots.to_string(), "--name", name])
         .arg("--spool")
         .arg(dir.join(format!("{name}.spool")))
         .args(extra);
@@ -36,20 +36,32 @@ fn worker_killed_mid_run_the_sweep_still_completes_once_each() {
     let db = dir.join("sweep.db");
     let port = free_port();
     let coord = serve(dir, &spec, port, &[]);
-    let mut a = worker(dir, port, "alpha", 2, &[]);
-    let mut b = worker(dir, port, "beta", 2, &[]);
-    wait_for(&db, Duration::from_secs(60), "some results", &[&coord, &a, &b], |st| {
-        field(st, "done") >= 4
-    });
+    let mut a = worker(dir, port, "alpha", 2, &["--grace", "5s"]);
+    let mut b = worker(dir, port, "beta", 2, &["--grace", "5s"]);
+    wait_for(
+        &db,
+        Duration::from_secs(60),
+        "some results",
+        &[&coord, &a, &b],
+        |st| field(st, "done") >= 4,
+    );
     a.kill9();
-    let st = wait_for(&db, Duration::from_secs(120), "the sweep to finish", &[&coord, &b], |st| {
-        st.get("finished").and_then(|v| v.as_bool()) == Some(true)
-    });
+    let st = wait_for(
+        &db,
+        Duration::from_secs(120),
+        "the sweep to finish",
+        &[&coord, &b],
+        |st| st.get("finished").and_then(|v| v.as_bool()) == Some(true),
+    );
     assert_eq!(field(&st, "done"), 24);
     assert_eq!(field(&st, "failed"), 0);
     assert_each_once_all_ok(&db, 24);
     let exit = b.wait_exit(Duration::from_secs(30));
-    assert!(exit.is_some_and(|s| s.success()), "worker beta did not exit cleanly: {}", b.output());
+    assert!(
+        exit.is_some_and(|s| s.success()),
+        "worker beta did not exit cleanly: {}",
+        b.output()
+    );
 }
 
 /// DESIGN.md invariant 1: the coordinator killed with SIGKILL and restarted on
@@ -64,21 +76,34 @@ fn coordinator_killed_and_restarted_loses_and_doubles_nothing() {
     let mut coord = serve(dir, &spec, port, &[]);
     let a = worker(dir, port, "alpha", 2, &[]);
     let b = worker(dir, port, "beta", 2, &[]);
-    wait_for(&db, Duration::from_secs(60), "some results", &[&coord, &a, &b], |st| {
-        field(st, "done") >= 6
-    });
+    wait_for(
+        &db,
+        Duration::from_secs(60),
+        "some results",
+        &[&coord, &a, &b],
+        |st| field(st, "done") >= 6,
+    );
     coord.kill9();
     std::thread::sleep(Duration::from_millis(800));
     let coord2 = serve(dir, &spec, port, &[]);
-    let st = wait_for(&db, Duration::from_secs(120), "the sweep to finish", &[&coord2, &a, &b], |st| {
-        st.get("finished").and_then(|v| v.as_bool()) == Some(true)
-    });
+    let st = wait_for(
+        &db,
+        Duration::from_secs(120),
+        "the sweep to finish",
+        &[&coord2, &a, &b],
+        |st| st.get("finished").and_then(|v| v.as_bool()) == Some(true),
+    );
     assert_eq!(field(&st, "done"), 28);
     assert_each_once_all_ok(&db, 28);
     let (mut a, mut b) = (a, b);
     for w in [&mut a, &mut b] {
         let exit = w.wait_exit(Duration::from_secs(30));
-        assert!(exit.is_some_and(|s| s.success()), "worker {} did not exit cleanly: {}", w.name, w.output());
+        assert!(
+            exit.is_some_and(|s| s.success()),
+            "worker {} did not exit cleanly: {}",
+            w.name,
+            w.output()
+        );
         assert!(w.output().contains("results delivered"), "{}", w.output());
     }
     drop(coord2);
@@ -97,8 +122,19 @@ fn worker_with_wrong_token_is_refused_and_leases_nothing() {
     let port = free_port();
     let good = dir.join("good.token");
     let bad = dir.join("bad.token");
-    let coord = serve(dir, &spec, port, &["--token-file", good.to_str().expect("utf-8 path")]);
-    let mut w = worker(dir, port, "intruder", 1, &["--token-file", bad.to_str().expect("utf-8 path")]);
+    let coord = serve(
+        dir,
+        &spec,
+        port,
+        &["--token-file", good.to_str().expect("utf-8 path")],
+    );
+    let mut w = worker(
+        dir,
+        port,
+        "intruder",
+        1,
+        &["--token-file", bad.to_str().expect("utf-8 path")],
+    );
     let exit = w.wait_exit(Duration::from_secs(30)).expect("worker exits");
     assert!(!exit.success(), "a worker with a wrong token must fail");
     assert!(
@@ -106,14 +142,26 @@ fn worker_with_wrong_token_is_refused_and_leases_nothing() {
         "message should say the token was rejected: {}",
         w.output()
     );
-    let st = wait_for(&db, Duration::from_secs(10), "a readable status", &[&coord], |_| true);
+    let st = wait_for(
+        &db,
+        Duration::from_secs(10),
+        "a readable status",
+        &[&coord],
+        |_| true,
+    );
     assert_eq!(field(&st, "done"), 0);
     assert_eq!(field(&st, "running"), 0);
     // No token at all is refused too.
     let mut none = worker(dir, port, "anonymous", 1, &[]);
-    let exit = none.wait_exit(Duration::from_secs(30)).expect("worker exits");
+    let exit = none
+        .wait_exit(Duration::from_secs(30))
+        .expect("worker exits");
     assert!(!exit.success());
-    assert!(none.output().contains("requires a token"), "{}", none.output());
+    assert!(
+        none.output().contains("requires a token"),
+        "{}",
+        none.output()
+    );
 }
 
 /// The coordinator refuses to listen beyond loopback without a token.
@@ -132,7 +180,10 @@ fn serve_refuses_a_public_address_without_a_token() {
         .expect("run serve");
     assert!(!out.status.success());
     let err = String::from_utf8_lossy(&out.stderr);
-    assert!(err.contains("without a token") && err.contains("--token-file"), "{err}");
+    assert!(
+        err.contains("without a token") && err.contains("--token-file"),
+        "{err}"
+    );
 }
 
 /// The same result delivered twice is stored once (first result wins).
@@ -157,7 +208,8 @@ fn a_result_sent_twice_is_stored_once() {
             }
             tokio::time::sleep(Duration::from_millis(100)).await;
         }
-        let mut c = client.unwrap_or_else(|| panic!("coordinator did not start: {}", coord.output()));
+        let mut c =
+            client.unwrap_or_else(|| panic!("coordinator did not start: {}", coord.output()));
         let join = c
             .join(pb::JoinRequest {
                 protocol: tessera_proto::PROTOCOL_VERSION,
@@ -212,12 +264,69 @@ fn a_result_sent_twice_is_stored_once() {
             })
             .await
             .expect_err("version mismatch refused");
-        assert!(err.message().contains("protocol mismatch"), "{}", err.message());
+        assert!(
+            err.message().contains("protocol mismatch"),
+            "{}",
+            err.message()
+        );
     });
     let st = status(&db).expect("status");
     assert_eq!(field(&st, "done"), 1);
     let rows = export_rows(&db);
-    let done: Vec<_> = rows.iter().filter(|r| r.get("status").map(String::as_str) == Some("done")).collect();
+    let done: Vec<_> = rows
+        .iter()
+        .filter(|r| r.get("status").map(String::as_str) == Some("done"))
+        .collect();
     assert_eq!(done.len(), 1, "{rows:?}");
-    assert_eq!(done[0].get("value").map(String::as_str).and_then(|v| v.parse::<f64>().ok()), Some(1.5));
+    assert_eq!(
+        done[0]
+            .get("value")
+            .map(String::as_str)
+            .and_then(|v| v.parse::<f64>().ok()),
+        Some(1.5)
+    );
+}
+
+/// SIGTERM to a worker: running work that cannot finish within the grace
+/// period is handed back at once (not left to expire), and the worker exits 0.
+/// SIGTERM to the coordinator: it exits 0 and the sweep resumes from the file.
+#[test]
+fn sigterm_hands_work_back_and_both_exit_cleanly() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let spec = branin_spec(dir, 3, 1, 4000);
+    let db = dir.join("sweep.db");
+    let port = free_port();
+    // Long leases: handed-back work must be re-queued without waiting for expiry.
+    let mut cmd = tessera();
+    cmd.arg("serve").arg(&spec).arg("--db").arg(&db).args([
+        "--listen",
+        &format!("127.0.0.1:{port}"),
+        "--lease",
+        "60s",
+    ]);
+    let mut coord = Proc::start(cmd, dir, "coordinator");
+    let mut w = worker(dir, port, "slow", 2, &["--grace", "1s"]);
+    wait_for(
+        &db,
+        Duration::from_secs(30),
+        "two running",
+        &[&coord, &w],
+        |_| w.output().contains("joined"),
+    );
+    std::thread::sleep(Duration::from_millis(700));
+    w.term();
+    let exit = w
+        .wait_exit(Duration::from_secs(20))
+        .expect("worker exits after SIGTERM");
+    assert!(exit.success(), "{}", w.output());
+    assert!(w.output().contains("2 handed back"), "{}", w.output());
+    coord.term();
+    let exit = coord
+        .wait_exit(Duration::from_secs(20))
+        .expect("coordinator exits after SIGTERM");
+    assert!(exit.success(), "{}", coord.output());
+    let st = status(&db).expect("status");
+    assert_eq!(field(&st, "done"), 0);
+    assert_eq!(field(&st, "queued"), 3);
 }

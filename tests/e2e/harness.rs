@@ -36,7 +36,9 @@ impl Proc {
             .open(&log)
             .expect("log file");
         let out = file.try_clone().expect("log file clone");
-        cmd.stdout(Stdio::from(out)).stderr(Stdio::from(file)).stdin(Stdio::null());
+        cmd.stdout(Stdio::from(out))
+            .stderr(Stdio::from(file))
+            .stdin(Stdio::null());
         let child = cmd.spawn().expect("start tessera");
         Proc {
             child,
@@ -175,14 +177,22 @@ pub fn assert_each_once_all_ok(db: &Path, expected: usize) -> usize {
             r.get("point").cloned().unwrap_or_default(),
             r.get("replicate").cloned().unwrap_or_default(),
         );
-        assert!(seen.insert(key.clone()), "evaluation {key:?} exported twice");
+        assert!(
+            seen.insert(key.clone()),
+            "evaluation {key:?} exported twice"
+        );
         assert_eq!(
             r.get("status").map(String::as_str),
             Some("done"),
             "evaluation {key:?} is not done: {r:?}"
         );
     }
-    assert_eq!(rows.len(), expected, "expected {expected} evaluations, got {}", rows.len());
+    assert_eq!(
+        rows.len(),
+        expected,
+        "expected {expected} evaluations, got {}",
+        rows.len()
+    );
     rows.len()
 }
 

@@ -17,7 +17,11 @@ fn local_run_completes_and_rerun_continues() {
         .args(["--workers", "2"])
         .output()
         .expect("run");
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     assert_each_once_all_ok(&db, 16);
     let st = status(&db).expect("status");
     assert_eq!(field(&st, "done"), 16);
