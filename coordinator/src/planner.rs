@@ -12,6 +12,7 @@
 use crate::scheduler::PointResults;
 use crate::spec::{Spec, Strategy};
 use rand::{Rng, SeedableRng};
+use tessera_surrogate::acquisition;
 use tessera_surrogate::gp::{self, FitOptions, Observations};
 
 /// Fewest points with results before a surrogate is fitted.
@@ -83,9 +84,14 @@ pub fn propose(
             return uniform(spec, d, q, seed);
         }
     };
-    // Proposal search arrives with surrogate::acquisition::propose.
-    let _ = (&fitted, &avoid, Strategy::Improve);
-    uniform(spec, d, q, seed)
+    let strategy = match spec.strategy {
+        Strategy::Improve => acquisition::Strategy::Improve,
+        Strategy::Explore => acquisition::Strategy::Explore,
+    };
+    acquisition::propose(&fitted, strategy, q, &avoid, seed)
+        .iter()
+        .map(|u| spec.to_natural(u))
+        .collect()
 }
 
 fn uniform(spec: &Spec, d: usize, q: usize, seed: u64) -> Vec<Vec<f64>> {
