@@ -1,0 +1,173 @@
+//! How far each surrogate can be trusted, from its leave-one-out errors.
+//!
+//! Each point is predicted from all the others (closed form, GPML sec.
+//! 5.4.2). A good surrogate predicts left-out points well (Q2 near 1) and
+//! its standardised errors (error / predicted sd) look like draws from a
+//! standard normal distribution: about 95% inside +-1.96, mean near 0, sd
+//! near 1 (Bastos & O'Hagan 2009, Technometrics 51:425-438).
+
+use super::predict::short;
+use crate::fitter::MetricFit;
+
+/// Below this Q2 the surrogate explains too little of the variation between
+/// points (common practice, no source).
+pub const MIN_Q2: f64 = 0.7;
+
+/// Below this share of left-out points inside their 95% interval the
+/// intervals are too narrow (common practice, no source).
+pub const MIN_COVERAGE: f64 = 0.85;
+
+/// Above this share of left-out points inside their 95% interval, together
+/// with standardised errors of sd below [`MIN_STANDARDIZED_SD`], the
+/// intervals are much too wide (common practice, no source).
+pub const MAX_COVERAGE: f64 = 0.99;
+
+/// See [`MAX_COVERAGE`] (common practice, no source).
+pub const MIN_STANDARDIZED_SD: f64 = 0.5;
+
+/// Points per parameter below which a surrogate is not yet judged
+/// trustworthy: the "n = 10 d" rule of Loeppky, Sacks & Welch (2009,
+/// Technometrics 51:366-376; from memory).
+pub const POINTS_PER_PARAM: u32 = 10;
+
+/// A standardised error beyond this is named as a badly predicted point
+/// (Bastos & O'Hagan 2009 read individual errors beyond 2 to 3 as a local
+/// problem; the 3 is our choice).
+pub const LARGE_STANDARDIZED: f64 = 3.0;
+
+/// The plain verdict.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Verdict {
+    /// No check failed.
+    Trustworthy,
+    /// At least one check failed: add points (and look at the reasons).
+    NeedsMorePoints,
+}
+
+impl Verdict {
+    /// The words shown to users.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Verdict::Trustworthy => "trustworthy",
+            Verdict::NeedsMorePoints => "needs more points",
+        }
+    }
+}
+
+/// The leave-one-out diagnostics of one surrogate and the verdict.
+#[derive(Clone, Debug, PartialEq, serde::Serialize)]
+pub struct FitVerdict {
+    /// Metric name.
+    pub metric: String,
+    /// Unit of the metric (and of `loo_rmse`).
+    pub unit: String,
+    /// Points the surrogate was fitted to.
+    pub n_points: u32,
+    /// Results (replicates) behind those points.
+    pub n_results: u32,
+    /// Root mean squared leave-one-out error, in the metric's unit.
+    pub loo_rmse: f64,
+    /// Q2 = 1 - SSE / SST of the leave-one-out predictions.
+    pub q2: f64,
+    /// Share of left-out points inside their 95% interval.
+    pub coverage95: f64,
+    /// Mean of the standardised leave-one-out errors (about 0 when fine).
+    pub standardized_mean: f64,
+    /// Sd of the standardised leave-one-out errors (about 1 when fine).
+    pub standardized_sd: f64,
+    /// Trustworthy or needs more points.
+    pub verdict: Verdict,
+    /// Why, in plain words: the failed checks, or what passed.
+    pub reason: String,
+    /// Further remarks (badly predicted points), not part of the verdict.
+    pub notes: Vec<String>,
+}
+
+/// Judges each fit by its leave-one-out errors.
+///
+/// "Needs more points" when: fewer than 10 points per parameter; Q2 below
+/// [`MIN_Q2`]; coverage of the 95% interval below [`MIN_COVERAGE`]; or
+/// coverage above [`MAX_COVERAGE`] with standardised errors of sd below
+/// [`MIN_STANDARDIZED_SD`] (intervals far too wide). Otherwise trustworthy.
+pub fn check_fit(fits: &[MetricFit]) -> Vec<FitVerdict> {
+    fits.iter().map(judge).collect()
+}
+
+fn judge(f: &MetricFit) -> FitVerdict {
+    let l = &f.loo;
+    let d = f.params.len().max(1) as u32;
+    let mut failed: Vec<String> = Vec::new();
+    if f.n_points < POINTS_PER_PARAM * d {
+        failed.push(format!(
+            "{} points for {} parameter{}; about {} per parameter ({}) are needed before the surrogate can be judged",
+            f.n_points,
+            d,
+            if d == 1 { "" } else { "s" },
+            POINTS_PER_PARAM,
+            POINTS_PER_PARAM * d
+        ));
+    }
+    if l.q2.is_nan() {
+        failed.push(
+            "Q2 cannot be computed: the metric has the same value at every point".to_string(),
+        );
+    } else if l.q2 < MIN_Q2 {
+        failed.push(format!(
+            "Q2 = {:.2} is below {MIN_Q2}: points left out are predicted poorly (the surrogate explains only {:.0}% of the variation between points)",
+            l.q2,
+            100.0 * l.q2.max(0.0)
+        ));
+    }
+    if l.coverage95 < MIN_COVERAGE {
+        failed.push(format!(
+            "only {:.0}% of points left out fall inside their 95% interval (want at least {:.0}%): the sd is too small, the intervals are overconfident",
+            100.0 * l.coverage95,
+            100.0 * MIN_COVERAGE
+        ));
+    } else if l.coverage95 > MAX_COVERAGE && l.standardized_sd < MIN_STANDARDIZED_SD {
+        failed.push(format!(
+            "the errors are far smaller than the sd says (standardised errors have sd {:.2}, want about 1): the intervals are too wide to be useful",
+            l.standardized_sd
+        ));
+    }
+    let mut notes = Vec::new();
+    for (z, idx) in l.standardized.iter().zip(&l.point_idx) {
+        if z.abs() > LARGE_STANDARDIZED {
+            notes.push(format!(
+                "point {idx} is predicted badly when left out (standardised error {z:.1}): a sharp local change, or a bad run"
+            ));
+        }
+    }
+    let (verdict, reason) = if failed.is_empty() {
+        (
+            Verdict::Trustworthy,
+            format!(
+                "Q2 = {:.2} and {:.0}% of points left out fall inside their 95% interval; typical error {}",
+                l.q2,
+                100.0 * l.coverage95,
+                if f.unit.is_empty() {
+                    short(l.rmse)
+                } else {
+                    format!("{} {}", short(l.rmse), f.unit)
+                }
+            ),
+        )
+    } else {
+        (Verdict::NeedsMorePoints, failed.join("; "))
+    };
+    FitVerdict {
+        metric: f.metric.clone(),
+        unit: f.unit.clone(),
+        n_points: f.n_points,
+        n_results: f.n_results,
+        loo_rmse: l.rmse,
+        q2: l.q2,
+        coverage95: l.coverage95,
+        standardized_mean: l.standardized_mean,
+        standardized_sd: l.standardized_sd,
+        verdict,
+        reason,
+        notes,
+    }
+}
