@@ -11,7 +11,7 @@ use std::time::{Duration, Instant};
 
 use tessera_worker::models::tiling::{simulate, Params};
 
-fn time_runs(p: &Params, reps: u64) -> (Duration, usize, usize) {
+fn time_runs(p: &Params, reps: u64) -> (Duration, usize, usize, u64) {
     let stop = AtomicBool::new(false);
     // One warm-up run (page faults of the first allocation).
     let warm = simulate(p, 0, &stop).expect("valid parameters");
@@ -21,21 +21,27 @@ fn time_runs(p: &Params, reps: u64) -> (Duration, usize, usize) {
         std::hint::black_box(&o.metrics);
     }
     let (nx, ny, nz) = warm.grid;
-    (t0.elapsed() / reps as u32, warm.cells, nx * ny * nz)
+    (
+        t0.elapsed() / reps as u32,
+        warm.cells,
+        nx * ny * nz,
+        warm.attempts,
+    )
 }
 
 fn main() {
     println!("full model (defaults: density 25 /10^4 um^2, 40 um layer, 2 um voxels, 48 h)");
-    println!("| layer width (um) | cells | voxels | time per run (ms) | ns per voxel |");
-    println!("|---:|---:|---:|---:|---:|");
+    println!("| layer width (um) | cells | voxels | claim attempts per voxel | time per run (ms) | ns per voxel |");
+    println!("|---:|---:|---:|---:|---:|---:|");
     for (width, reps) in [(100.0, 20), (200.0, 10), (400.0, 5), (800.0, 3)] {
         let p = Params {
             layer_width: width,
             ..Params::default()
         };
-        let (t, cells, voxels) = time_runs(&p, reps);
+        let (t, cells, voxels, attempts) = time_runs(&p, reps);
         println!(
-            "| {width} | {cells} | {voxels} | {:.1} | {:.0} |",
+            "| {width} | {cells} | {voxels} | {:.2} | {:.1} | {:.0} |",
+            attempts as f64 / voxels as f64,
             t.as_secs_f64() * 1e3,
             t.as_secs_f64() * 1e9 / voxels as f64
         );
@@ -51,7 +57,7 @@ fn main() {
             layer_thickness: 2.0,
             ..Params::default()
         };
-        let (t, cells, _) = time_runs(&p, reps);
+        let (t, cells, _, _) = time_runs(&p, reps);
         println!(
             "| {width} | {cells} | {:.1} | {:.2} |",
             t.as_secs_f64() * 1e3,

@@ -181,6 +181,8 @@ pub struct Outcome {
     pub bodies: Vec<(f64, f64)>,
     /// Growth steps taken.
     pub steps: usize,
+    /// Claim attempts made (a measure of the work done).
+    pub attempts: u64,
 }
 
 /// Runs the model from validated inputs.
@@ -267,6 +269,7 @@ pub fn simulate(p: &Params, seed: u64, stop: &AtomicBool) -> Result<Outcome, Run
         heights,
         bodies,
         steps: grown.steps,
+        attempts: grown.attempts,
     })
 }
 
@@ -466,6 +469,67 @@ struct Grown {
     counts: Vec<u64>,
     claimed: u64,
     steps: usize,
+    attempts: u64,
+}
+
+/// A voxel by its grid coordinates (x, y periodic; z = 0 at the basal face).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+struct Vox {
+    x: u16,
+    y: u16,
+    z: u16,
+}
+
+/// The voxel grid's shape; maps coordinates to a flat index (no divisions in
+/// the growth loop).
+#[derive(Clone, Copy, Debug)]
+struct Shape {
+    nx: u16,
+    ny: u16,
+    nz: u16,
+}
+
+impl Shape {
+    /// z varies fastest, so a cell's territory (a few columns) lies in a few
+    /// contiguous runs of memory.
+    #[inline]
+    fn index(&self, v: Vox) -> usize {
+        (v.y as usize * self.nx as usize + v.x as usize) * self.nz as usize + v.z as usize
+    }
+
+    /// The 6 face neighbours of `v` (periodic in x and y; none beyond the
+    /// basal and apical faces).
+    #[inline]
+    fn face_neighbours(&self, v: Vox) -> [Option<Vox>; 6] {
+        let xm = if v.x == 0 { self.nx - 1 } else { v.x - 1 };
+        let xp = if v.x + 1 == self.nx { 0 } else { v.x + 1 };
+        let ym = if v.y == 0 { self.ny - 1 } else { v.y - 1 };
+        let yp = if v.y + 1 == self.ny { 0 } else { v.y + 1 };
+        [
+            Some(Vox { x: xm, ..v }),
+            Some(Vox { x: xp, ..v }),
+            Some(Vox { y: ym, ..v }),
+            Some(Vox { y: yp, ..v }),
+            (v.z > 0).then(|| Vox { z: v.z - 1, ..v }),
+            (v.z + 1 < self.nz).then(|| Vox { z: v.z + 1, ..v }),
+        ]
+    }
+
+    /// Squared lateral distance (in voxels, periodic) from the centre of
+    /// column (x, y) to a body at (bx, by) in voxel units.
+    #[inline]
+    fn lateral_d2(&self, v: Vox, bx: f64, by: f64) -> f64 {
+        let (nx, ny) = (f64::from(self.nx), f64::from(self.ny));
+        let mut dx = (f64::from(v.x) + 0.5 - bx).abs();
+        let mut dy = (f64::from(v.y) + 0.5 - by).abs();
+        if dx > 0.5 * nx {
+            dx = nx - dx;
+        }
+        if dy > 0.5 * ny {
+            dy = ny - dy;
+        }
+        dx * dx + dy * dy
+    }
 }
 
 /// Territory growth on the voxel grid (see the module docs, step 3).
@@ -478,20 +542,26 @@ fn grow(
     rng: &mut ChaCha8Rng,
     stop: &AtomicBool,
 ) -> Result<Grown, RunFailure> {
-    let ny = nx;
-    let plane = nx * ny;
+    // Bounded by the input ranges: layer_width / voxel <= 4000 and
+    // layer_thickness / voxel <= 800, so u16 coordinates suffice.
+    let to16 = |n: usize| u16::try_from(n).unwrap_or(u16::MAX);
+    let shape = Shape {
+        nx: to16(nx),
+        ny: to16(nx),
+        nz: to16(nz),
+    };
     let n = bodies.len();
-    // owner[v] = 0 for free, else cell index + 1.
-    let mut owner = vec![0u32; plane * nz];
-    // stamp[v] = id of the (cell, step) visit that last tried to claim v, so
-    // that each free voxel gets one try per cell per step.
-    let mut stamp = vec![0u32; plane * nz];
+    let total_voxels = nx * nx * nz;
+    // Each voxel: the owning cell + 1 (0 = free), and the id of the
+    // (cell, step) visit that last tried to claim it, so that each free voxel
+    // gets one try per cell per step. Kept side by side for cache locality.
+    let mut cells = vec![(0u32, 0u32); total_voxels];
     let mut visit: u32 = 0;
     let mut counts = vec![0u64; n];
     let mut claimed = 0u64;
-    let top: Vec<usize> = heights
+    let top: Vec<u16> = heights
         .iter()
-        .map(|h| (((h / p.voxel).round() as usize).max(1)).min(nz))
+        .map(|h| to16(((h / p.voxel).round() as usize).clamp(1, nz)))
         .collect();
     let reach2 = (p.reach / p.voxel).powi(2);
     let body_vox: Vec<(f64, f64)> = bodies
@@ -502,9 +572,9 @@ fn grow(
 
     // Seed voxels: the body's own voxel at the basal face or, when another
     // cell already holds it, the first free one of its 8 lateral neighbours.
-    let mut boundary: Vec<Vec<u32>> = vec![Vec::new(); n];
+    let mut boundary: Vec<Vec<Vox>> = vec![Vec::new(); n];
     for (c, &(bx, by)) in body_vox.iter().enumerate() {
-        let (ix, iy) = ((bx as usize).min(nx - 1), (by as usize).min(ny - 1));
+        let (ix, iy) = ((bx as usize).min(nx - 1), (by as usize).min(nx - 1));
         let mut candidates = vec![(ix, iy)];
         for (dx, dy) in [
             (-1, 0),
@@ -516,14 +586,21 @@ fn grow(
             (-1, 1),
             (1, 1),
         ] {
-            candidates.push((wrap(ix, dx, nx), wrap(iy, dy, ny)));
+            candidates.push((wrap(ix, dx, nx), wrap(iy, dy, nx)));
         }
-        if let Some(&(x, y)) = candidates.iter().find(|&&(x, y)| owner[y * nx + x] == 0) {
-            let v = y * nx + x;
-            owner[v] = c as u32 + 1;
+        let free = candidates.iter().find_map(|&(x, y)| {
+            let v = Vox {
+                x: to16(x),
+                y: to16(y),
+                z: 0,
+            };
+            (cells[shape.index(v)].0 == 0).then_some(v)
+        });
+        if let Some(v) = free {
+            cells[shape.index(v)].0 = c as u32 + 1;
             counts[c] += 1;
             claimed += 1;
-            boundary[c].push(v as u32);
+            boundary[c].push(v);
         }
     }
 
@@ -534,9 +611,10 @@ fn grow(
     let last_fraction = total - full_steps as f64;
     let n_steps = full_steps + usize::from(last_fraction > 1e-12);
     let mut order: Vec<usize> = (0..n).collect();
-    let mut kept: Vec<u32> = Vec::new();
-    let mut fresh: Vec<u32> = Vec::new();
+    let mut kept: Vec<Vox> = Vec::new();
+    let mut fresh: Vec<Vox> = Vec::new();
     let mut steps = 0;
+    let mut attempts = 0u64;
     for step in 0..n_steps {
         if is_stopped(stop) {
             return Err(stopped(NAME));
@@ -556,7 +634,7 @@ fn grow(
                 continue;
             }
             if visit == u32::MAX {
-                stamp.iter_mut().for_each(|s| *s = 0);
+                cells.iter_mut().for_each(|s| s.1 = 0);
                 visit = 0;
             }
             visit += 1;
@@ -566,38 +644,39 @@ fn grow(
             kept.clear();
             fresh.clear();
             for &v in &boundary[c] {
-                let v = v as usize;
                 let mut keep = false;
-                for w in face_neighbours(v, nx, ny, nz).into_iter().flatten() {
-                    if owner[w] != 0 {
+                for w in shape.face_neighbours(v).into_iter().flatten() {
+                    let wi = shape.index(w);
+                    if cells[wi].0 != 0 || w.z >= top_c || shape.lateral_d2(w, bx, by) > reach2 {
                         continue;
                     }
-                    let (x, y, z) = (w % nx, (w / nx) % ny, w / plane);
-                    if z >= top_c || lateral_d2(x, y, bx, by, nx, ny) > reach2 {
-                        continue;
-                    }
-                    if stamp[w] == visit {
+                    if cells[wi].1 == visit {
                         // Already tried in this visit, and still free.
                         keep = true;
                         continue;
                     }
-                    stamp[w] = visit;
-                    let foreign = face_neighbours(w, nx, ny, nz)
+                    cells[wi].1 = visit;
+                    attempts += 1;
+                    let foreign = shape
+                        .face_neighbours(w)
                         .into_iter()
                         .flatten()
-                        .filter(|&u| owner[u] != 0 && owner[u] != me)
+                        .filter(|&u| {
+                            let o = cells[shape.index(u)].0;
+                            o != 0 && o != me
+                        })
                         .count();
                     if rng.random::<f64>() < p_step * inhibit[foreign] {
-                        owner[w] = me;
+                        cells[wi].0 = me;
                         counts[c] += 1;
                         claimed += 1;
-                        fresh.push(w as u32);
+                        fresh.push(w);
                     } else {
                         keep = true;
                     }
                 }
                 if keep {
-                    kept.push(v as u32);
+                    kept.push(v);
                 }
             }
             let b = &mut boundary[c];
@@ -610,49 +689,12 @@ fn grow(
         counts,
         claimed,
         steps,
+        attempts,
     })
 }
 
 fn wrap(i: usize, d: isize, n: usize) -> usize {
     (i as isize + d).rem_euclid(n as isize) as usize
-}
-
-/// The 6 face neighbours of voxel `v` (periodic in x and y; none beyond the
-/// basal and apical faces).
-#[inline]
-fn face_neighbours(v: usize, nx: usize, ny: usize, nz: usize) -> [Option<usize>; 6] {
-    let plane = nx * ny;
-    let x = v % nx;
-    let y = (v / nx) % ny;
-    let z = v / plane;
-    let row = v - x;
-    let layer = v - (y * nx + x);
-    let xm = if x == 0 { row + nx - 1 } else { v - 1 };
-    let xp = if x + 1 == nx { row } else { v + 1 };
-    let ym = if y == 0 {
-        layer + (ny - 1) * nx + x
-    } else {
-        v - nx
-    };
-    let yp = if y + 1 == ny { layer + x } else { v + nx };
-    let zm = (z > 0).then(|| v - plane);
-    let zp = (z + 1 < nz).then(|| v + plane);
-    [Some(xm), Some(xp), Some(ym), Some(yp), zm, zp]
-}
-
-/// Squared lateral distance (in voxels, periodic) from voxel centre (x, y)
-/// to a body at (bx, by) in voxel units.
-#[inline]
-fn lateral_d2(x: usize, y: usize, bx: f64, by: f64, nx: usize, ny: usize) -> f64 {
-    let mut dx = (x as f64 + 0.5 - bx).abs();
-    let mut dy = (y as f64 + 0.5 - by).abs();
-    if dx > 0.5 * nx as f64 {
-        dx = nx as f64 - dx;
-    }
-    if dy > 0.5 * ny as f64 {
-        dy = ny as f64 - dy;
-    }
-    dx * dx + dy * dy
 }
 
 /// Expected regularity index of a 2-D Poisson pattern, sqrt(pi / (4 - pi)):
@@ -667,32 +709,47 @@ mod tests {
 
     #[test]
     fn face_neighbours_wrap_in_x_and_y_only() {
-        let (nx, ny, nz) = (4, 3, 2);
-        let idx = |x: usize, y: usize, z: usize| (z * ny + y) * nx + x;
-        let n = face_neighbours(idx(0, 0, 0), nx, ny, nz);
+        let shape = Shape {
+            nx: 4,
+            ny: 3,
+            nz: 2,
+        };
+        let v = |x, y, z| Vox { x, y, z };
         assert_eq!(
-            n,
+            shape.face_neighbours(v(0, 0, 0)),
             [
-                Some(idx(3, 0, 0)),
-                Some(idx(1, 0, 0)),
-                Some(idx(0, 2, 0)),
-                Some(idx(0, 1, 0)),
+                Some(v(3, 0, 0)),
+                Some(v(1, 0, 0)),
+                Some(v(0, 2, 0)),
+                Some(v(0, 1, 0)),
                 None,
-                Some(idx(0, 0, 1))
+                Some(v(0, 0, 1))
             ]
         );
-        let n = face_neighbours(idx(3, 2, 1), nx, ny, nz);
         assert_eq!(
-            n,
+            shape.face_neighbours(v(3, 2, 1)),
             [
-                Some(idx(2, 2, 1)),
-                Some(idx(0, 2, 1)),
-                Some(idx(3, 1, 1)),
-                Some(idx(3, 0, 1)),
-                Some(idx(3, 2, 0)),
+                Some(v(2, 2, 1)),
+                Some(v(0, 2, 1)),
+                Some(v(3, 1, 1)),
+                Some(v(3, 0, 1)),
+                Some(v(3, 2, 0)),
                 None
             ]
         );
+        // Flat indices are distinct and cover the grid.
+        let mut seen = [false; 24];
+        for z in 0..2 {
+            for y in 0..3 {
+                for x in 0..4 {
+                    seen[shape.index(v(x, y, z))] = true;
+                }
+            }
+        }
+        assert!(seen.iter().all(|&b| b));
+        // Periodic lateral distance: column 0 is 0.5 + 0.5 voxels from a body
+        // at x = 3.5 on a 4-wide grid... through the wrap, 1 voxel.
+        assert_eq!(shape.lateral_d2(v(0, 0, 0), 3.5, 0.5), 1.0);
     }
 
     #[test]
