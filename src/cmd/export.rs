@@ -25,7 +25,7 @@ pub enum ExportFormat {
 natural units, every metric the model reported, and why it failed if it did.\n\n\
 Columns: point, origin, replicate, seed, status, one column per parameter, one \
 per metric (the union over all runs; empty where a run did not report it), \
-failure_kind, failure_reason, worker, attempts, started_unix_ms, ended_unix_ms. \
+failure_kind, failure_reason, stderr_tail, worker, attempts, started_unix_ms, ended_unix_ms. \
 The database may be read while the sweep is still running.",
     after_help = "\
 Examples:
@@ -122,6 +122,7 @@ const FIXED_BEFORE: &[&str] = &["point", "origin", "replicate", "seed", "status"
 const FIXED_AFTER: &[&str] = &[
     "failure_kind",
     "failure_reason",
+    "stderr_tail",
     "worker",
     "attempts",
     "started_unix_ms",
@@ -203,6 +204,7 @@ impl<'a> Table<'a> {
             }
             row.push(e.failure_kind.clone().unwrap_or_default());
             row.push(e.failure_reason.clone().unwrap_or_default());
+            row.push(e.stderr_tail.clone().unwrap_or_default());
             row.push(e.worker.clone().unwrap_or_default());
             row.push(e.attempts.to_string());
             row.push(e.started_unix_ms.map_or(String::new(), |t| t.to_string()));
@@ -237,6 +239,7 @@ impl<'a> Table<'a> {
                 "metrics": e.metrics,
                 "failure_kind": e.failure_kind,
                 "failure_reason": e.failure_reason,
+                "stderr_tail": e.stderr_tail,
                 "worker": e.worker,
                 "attempts": e.attempts,
                 "started_unix_ms": e.started_unix_ms,

@@ -147,22 +147,18 @@ pub fn export_rows(db: &Path) -> Vec<std::collections::BTreeMap<String, String>>
         "export failed: {}",
         String::from_utf8_lossy(&out.stderr)
     );
-    let text = String::from_utf8_lossy(&out.stdout).to_string();
-    let mut lines = text.lines();
-    let header: Vec<String> = lines
-        .next()
-        .unwrap_or("")
-        .split(',')
-        .map(|s| s.trim().to_string())
+    let mut reader = csv::Reader::from_reader(out.stdout.as_slice());
+    let header: Vec<String> = reader
+        .headers()
+        .expect("CSV header")
+        .iter()
+        .map(str::to_string)
         .collect();
-    lines
-        .filter(|l| !l.trim().is_empty())
-        .map(|l| {
-            header
-                .iter()
-                .cloned()
-                .zip(l.split(',').map(|s| s.trim().to_string()))
-                .collect()
+    reader
+        .records()
+        .map(|r| {
+            let r = r.expect("CSV row");
+            header.iter().cloned().zip(r.iter().map(str::to_string)).collect()
         })
         .collect()
 }

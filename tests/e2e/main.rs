@@ -6,5 +6,6 @@
 
 mod deploy_files;
 mod distributed;
+mod external_model;
 mod harness;
 mod local_run;
