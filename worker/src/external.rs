@@ -5,9 +5,12 @@
 //! - inputs arrive three ways at once: a JSON object on stdin, environment
 //!   variables `TESSERA_PARAM_<NAME>` (name upper-cased, other characters than
 //!   letters, digits and `_` turned into `_`), and `{name}` placeholders in the
-//!   command words; also `{seed}`, `{replicate}`, `{workdir}`, `{metrics}` and
-//!   `TESSERA_SEED`, `TESSERA_REPLICATE`, `TESSERA_WORKDIR`, `TESSERA_METRICS`,
-//!   `TESSERA_MODEL`, `TESSERA_POINT_ID`, `TESSERA_EVALUATION_ID`;
+//!   command words; also `{seed}`, `{replicate}`, `{workdir}`, `{metrics}`,
+//!   `{launch_dir}` and `TESSERA_SEED`, `TESSERA_REPLICATE`, `TESSERA_WORKDIR`,
+//!   `TESSERA_METRICS`, `TESSERA_LAUNCH_DIR`, `TESSERA_MODEL`,
+//!   `TESSERA_POINT_ID`, `TESSERA_EVALUATION_ID`;
+//! - relative paths in the command words that name existing files are made
+//!   absolute against the directory tessera was started in;
 //! - the simulator reports metrics as a JSON object, either in the file
 //!   `$TESSERA_METRICS` or on the last non-empty line of stdout (the file wins
 //!   when it exists);
@@ -46,6 +49,7 @@ pub struct ExternalCommand {
     words: Vec<String>,
     workdir_root: PathBuf,
     keep_workdirs: bool,
+    launch_dir: PathBuf,
 }
 
 /// Kills a process group when dropped (the run future was dropped, or the
@@ -79,17 +83,26 @@ enum Ending {
 
 impl ExternalCommand {
     /// A command serving model `name`; `words[0]` is the program.
+    ///
+    /// The run starts in its own directory, so relative paths in the words
+    /// are resolved against `launch_dir` (the directory the operator started
+    /// tessera in) now: see [`resolve_relative_words`].
     pub fn new(
         name: String,
         words: Vec<String>,
         workdir_root: PathBuf,
         keep_workdirs: bool,
+        launch_dir: PathBuf,
     ) -> Self {
+        let words = resolve_relative_words(&words, &launch_dir);
+        // The simulator runs elsewhere: paths handed to it must be absolute.
+        let workdir_root = launch_dir.join(workdir_root);
         ExternalCommand {
             name,
             words,
             workdir_root,
             keep_workdirs,
+            launch_dir,
         }
     }
 
@@ -163,6 +176,7 @@ impl ExternalCommand {
         fields.insert("replicate".into(), req.replicate.to_string());
         fields.insert("workdir".into(), workdir.display().to_string());
         fields.insert("metrics".into(), metrics_path.display().to_string());
+        fields.insert("launch_dir".into(), self.launch_dir.display().to_string());
         let words: Vec<String> = self.words.iter().map(|w| fill(w, &fields)).collect();
 
         let mut cmd = tokio::process::Command::new(&words[0]);
@@ -179,7 +193,8 @@ impl ExternalCommand {
             .env("TESSERA_POINT_ID", req.point_id.to_string())
             .env("TESSERA_EVALUATION_ID", req.evaluation_id.to_string())
             .env("TESSERA_WORKDIR", workdir)
-            .env("TESSERA_METRICS", &metrics_path);
+            .env("TESSERA_METRICS", &metrics_path)
+            .env("TESSERA_LAUNCH_DIR", &self.launch_dir);
         for (k, v) in inputs {
             cmd.env(env_name(k), value_text(v));
         }
@@ -315,6 +330,32 @@ impl ExternalCommand {
         };
         parse_metrics(&text).map_err(|(kind, why)| fail(kind, format!("{source}: {why}")))
     }
+}
+
+/// Makes relative paths in command words absolute against `base`, because
+/// the command runs in a fresh directory of its own. A word is resolved when
+/// `base/word` exists and the word is not absolute, not an option (`-x`) and
+/// holds no placeholder; the program word (the first) only when it contains a
+/// `/`, as a shell would look a bare name up on `PATH`. Paths inside a
+/// `sh -c '...'` script are not seen: use `{launch_dir}` or
+/// `$TESSERA_LAUNCH_DIR` there.
+pub fn resolve_relative_words(words: &[String], base: &Path) -> Vec<String> {
+    words
+        .iter()
+        .enumerate()
+        .map(|(i, w)| {
+            let eligible = !w.is_empty()
+                && !w.starts_with('/')
+                && !w.starts_with('-')
+                && !w.contains('{')
+                && (i > 0 || w.contains('/'));
+            if eligible && base.join(w).exists() {
+                base.join(w).display().to_string()
+            } else {
+                w.clone()
+            }
+        })
+        .collect()
 }
 
 /// Params and fixed inputs in one map; a name in both is a bad input.
@@ -619,6 +660,29 @@ mod tests {
         assert_eq!(fill("awk '{print $1}' {x2}", &f), "awk '{print $1}' {x2}");
         assert_eq!(fill("{", &f), "{");
         assert_eq!(fill("a{{seed}}", &f), "a{7}");
+    }
+
+    #[test]
+    fn relative_paths_that_exist_are_made_absolute() {
+        let dir = tempfile::tempdir().expect("tempdir");
+        std::fs::create_dir(dir.path().join("sims")).expect("mkdir");
+        std::fs::write(dir.path().join("sims/a.py"), "").expect("write");
+        std::fs::write(dir.path().join("run.sh"), "").expect("write");
+        let words: Vec<String> = ["python3", "sims/a.py", "-v", "missing.txt", "{x}", "/abs"]
+            .map(String::from)
+            .to_vec();
+        let out = resolve_relative_words(&words, dir.path());
+        let abs = dir.path().join("sims/a.py").display().to_string();
+        assert_eq!(
+            out,
+            ["python3", abs.as_str(), "-v", "missing.txt", "{x}", "/abs"]
+        );
+        // A bare program name is looked up on PATH, as by a shell...
+        let out = resolve_relative_words(&["run.sh".to_string()], dir.path());
+        assert_eq!(out, ["run.sh"]);
+        // ...but ./run.sh names the file.
+        let out = resolve_relative_words(&["./run.sh".to_string()], dir.path());
+        assert_eq!(out, [dir.path().join("./run.sh").display().to_string()]);
     }
 
     #[test]

@@ -201,6 +201,8 @@ impl Runners {
     /// Builds the runner set. A later command of the same name replaces an
     /// earlier one; a command named like a built-in model shadows it.
     pub fn new(cfg: RunnerConfig) -> Self {
+        // Relative paths in commands are relative to where tessera started.
+        let launch_dir = std::env::current_dir().unwrap_or_default();
         let mut commands = BTreeMap::new();
         for (name, words) in cfg.commands {
             if models::find(&name).is_some() {
@@ -211,6 +213,7 @@ impl Runners {
                 words,
                 cfg.workdir_root.clone(),
                 cfg.keep_workdirs,
+                launch_dir.clone(),
             );
             if commands.insert(name.clone(), cmd).is_some() {
                 tracing::warn!(model = %name, "command given twice; the last one is used");
