@@ -44,6 +44,10 @@ enum Command {
     Worker(cmd::worker::WorkerArgs),
     /// Show how far a sweep has got.
     Status(cmd::status::StatusArgs),
+    /// Predict metrics, with uncertainty, at parameter values you choose.
+    Predict(cmd::predict::PredictArgs),
+    /// Check how far each surrogate can be trusted (leave-one-out errors and a verdict).
+    CheckFit(cmd::check_fit::CheckFitArgs),
     /// Write every evaluation in a sweep database as CSV or JSON lines.
     Export(cmd::export::ExportArgs),
 }
@@ -62,6 +66,8 @@ fn main() -> ExitCode {
         Command::Serve(a) => cmd::serve::run(a),
         Command::Worker(a) => cmd::worker::run(a),
         Command::Status(a) => cmd::status::run(a),
+        Command::Predict(a) => cmd::predict::run(a),
+        Command::CheckFit(a) => cmd::check_fit::run(a),
         Command::Export(a) => cmd::export::run(a),
     };
     match outcome {

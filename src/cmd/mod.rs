@@ -4,9 +4,11 @@
 use anyhow::Context;
 
 pub mod check;
+pub mod check_fit;
 pub mod export;
 pub mod init;
 pub mod net;
+pub mod predict;
 pub mod run;
 pub mod serve;
 pub mod simulate;
