@@ -278,7 +278,8 @@ fn metrics_json(m: &Metrics) -> String {
     serde_json::Value::Object(map).to_string()
 }
 
-/// Six significant digits, no exponent for ordinary magnitudes.
+/// Six significant digits (trailing zeros dropped), no exponent for
+/// ordinary magnitudes.
 fn format_value(v: f64) -> String {
     let a = v.abs();
     if a == 0.0 {
@@ -288,7 +289,12 @@ fn format_value(v: f64) -> String {
         return format!("{v:.5e}");
     }
     let decimals = (5 - a.log10().floor() as i32).max(0) as usize;
-    format!("{v:.decimals$}")
+    let s = format!("{v:.decimals$}");
+    if s.contains('.') {
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        s
+    }
 }
 
 /// An aligned table: metric, value, unit (and the meaning for built-ins).
@@ -347,25 +353,46 @@ fn describe(info: &ModelInfo) -> String {
         "{}: {}\n\nInputs (NAME=VALUE):\n",
         info.name, info.description
     );
-    let w = info.inputs.iter().map(|i| i.name.len()).max().unwrap_or(0);
-    for i in &info.inputs {
-        let _ = writeln!(
-            s,
-            "  {:w$}  {:>10} {:16} range [{}, {}]{}\n  {:w$}  {}",
-            i.name,
-            format_value(i.default),
-            i.unit,
-            i.lo,
-            i.hi,
-            if i.integer { ", whole numbers" } else { "" },
-            "",
-            i.description
-        );
+    let rows: Vec<[String; 4]> = info
+        .inputs
+        .iter()
+        .map(|i| {
+            [
+                i.name.to_string(),
+                format_value(i.default),
+                i.unit.to_string(),
+                format!(
+                    "[{}, {}]{}",
+                    format_value(i.lo),
+                    format_value(i.hi),
+                    if i.integer { " whole numbers" } else { "" }
+                ),
+            ]
+        })
+        .collect();
+    let header = ["name", "default", "unit", "range"].map(String::from);
+    let width = |k: usize| {
+        rows.iter()
+            .chain([&header])
+            .map(|r| r[k].chars().count())
+            .max()
+            .unwrap_or(0)
+    };
+    let (w0, w1, w2) = (width(0), width(1), width(2));
+    let _ = writeln!(
+        s,
+        "  {:w0$}  {:>w1$}  {:w2$}  {}",
+        header[0], header[1], header[2], header[3]
+    );
+    for (r, i) in rows.iter().zip(&info.inputs) {
+        let _ = writeln!(s, "  {:w0$}  {:>w1$}  {:w2$}  {}", r[0], r[1], r[2], r[3]);
+        let _ = writeln!(s, "      {}", i.description);
     }
     s.push_str("\nMetrics:\n");
     let w = info.metrics.iter().map(|m| m.name.len()).max().unwrap_or(0);
+    let wu = info.metrics.iter().map(|m| m.unit.len()).max().unwrap_or(0);
     for m in &info.metrics {
-        let _ = writeln!(s, "  {:w$}  {:8}  {}", m.name, m.unit, m.description);
+        let _ = writeln!(s, "  {:w$}  {:wu$}  {}", m.name, m.unit, m.description);
     }
     s
 }
@@ -389,7 +416,8 @@ mod tests {
     fn values_are_printed_with_six_significant_digits() {
         assert_eq!(format_value(0.397887357), "0.397887");
         assert_eq!(format_value(14794.4), "14794.4");
-        assert_eq!(format_value(3.0), "3.00000");
+        assert_eq!(format_value(3.0), "3");
+        assert_eq!(format_value(0.5), "0.5");
         assert_eq!(format_value(-1e-7), "-1.00000e-7");
     }
 }
