@@ -335,3 +335,31 @@ fn isotropic_se_matches_friedrich() {
         assert!((p[i].sd * p[i].sd - v_f[i]).abs() < 1e-9, "var {i}");
     }
 }
+
+#[test]
+fn predict_mean_equals_predict() {
+    // Same formula (GPML eq. 2.25) by two code paths.
+    let f = fixture();
+    let (obs, xs) = data(&f);
+    let gp = fit(&obs, &FitOptions::default()).expect("fit");
+    let a = gp.predict(&xs);
+    let b = gp.predict_mean(&xs);
+    for (p, m) in a.iter().zip(&b) {
+        assert!((p.mean - m).abs() <= 1e-12 * (1.0 + m.abs()));
+    }
+}
+
+#[test]
+fn predict_cov_diagonal_equals_predict_sd() {
+    // Posterior covariance (GPML eq. 2.26): its diagonal is the latent variance.
+    let f = fixture();
+    let (obs, xs) = data(&f);
+    let gp = fit(&obs, &FitOptions::default()).expect("fit");
+    let c = gp.predict_cov(&xs);
+    for (i, p) in gp.predict(&xs).iter().enumerate() {
+        assert!((c[i][i] - p.sd * p.sd).abs() < 1e-10);
+        for j in 0..xs.len() {
+            assert!((c[i][j] - c[j][i]).abs() < 1e-12);
+        }
+    }
+}

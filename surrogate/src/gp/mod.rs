@@ -447,6 +447,32 @@ impl Gp {
         out
     }
 
+    /// Posterior means only (natural units): O(n) per point after the
+    /// cross-covariances, no triangular solve; for trend maps and Sobol
+    /// indices, which need many evaluations of the mean.
+    #[track_caller]
+    pub fn predict_mean(&self, xs: &[Vec<f64>]) -> Vec<f64> {
+        let z = self.flatten_queries(xs);
+        let (n, d) = (self.n, self.d);
+        let sf2 = self.hyper.signal_var;
+        let inv_l = self.inv_l();
+        let mut out = Vec::with_capacity(xs.len());
+        const BLOCK: usize = 4096;
+        for start in (0..xs.len()).step_by(BLOCK) {
+            let end = (start + BLOCK).min(xs.len());
+            let ks = if d == 0 {
+                vec![sf2; n * (end - start)]
+            } else {
+                kernel_cross(self.kernel, &self.x, &z[start * d..end * d], d, sf2, &inv_l)
+            };
+            out.par_extend(ks.par_chunks(n).map(|col| {
+                let mu: f64 = col.iter().zip(&self.alpha).map(|(k, a)| k * a).sum();
+                self.y_mean + self.y_scale * (self.hyper.mean + mu)
+            }));
+        }
+        out
+    }
+
     /// Posterior covariance matrix of f at `xs` (natural units, m x m).
     #[track_caller]
     pub fn predict_cov(&self, xs: &[Vec<f64>]) -> Vec<Vec<f64>> {

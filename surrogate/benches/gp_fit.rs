@@ -1,0 +1,106 @@
+//! Timing of GP fitting and prediction (plain std::time; results go to
+//! docs/benchmarks.md next to scikit-learn's from scripts/bench_gp_sklearn.py,
+//! which builds the same data).
+//!
+//! Data: d = 6, inputs x_ik = frac(0.5 + i a_k) with a_k = frac(sqrt(p_k)),
+//! p = 2, 3, 5, 7, 11, 13 (a Kronecker sequence), outputs Hartmann-6 plus
+//! 0.05 sin(1.3 i) as deterministic "noise".
+//!
+//! Usage: cargo bench -p tessera-surrogate [-- n1 n2 ...]
+
+use std::time::Instant;
+
+use tessera_surrogate::gp::{fit, FitOptions, Observations};
+
+fn hartmann6(x: &[f64]) -> f64 {
+    // Surjanovic & Bingham, Virtual Library of Simulation Experiments.
+    const ALPHA: [f64; 4] = [1.0, 1.2, 3.0, 3.2];
+    const A: [[f64; 6]; 4] = [
+        [10.0, 3.0, 17.0, 3.5, 1.7, 8.0],
+        [0.05, 10.0, 17.0, 0.1, 8.0, 14.0],
+        [3.0, 3.5, 1.7, 10.0, 17.0, 8.0],
+        [17.0, 8.0, 0.05, 10.0, 0.1, 14.0],
+    ];
+    const P: [[f64; 6]; 4] = [
+        [1312.0, 1696.0, 5569.0, 124.0, 8283.0, 5886.0],
+        [2329.0, 4135.0, 8307.0, 3736.0, 1004.0, 9991.0],
+        [2348.0, 1451.0, 3522.0, 2883.0, 3047.0, 6650.0],
+        [4047.0, 8828.0, 8732.0, 5743.0, 1091.0, 381.0],
+    ];
+    -(0..4)
+        .map(|i| {
+            let s: f64 = (0..6)
+                .map(|j| A[i][j] * (x[j] - 1e-4 * P[i][j]).powi(2))
+                .sum();
+            ALPHA[i] * (-s).exp()
+        })
+        .sum::<f64>()
+}
+
+fn frac(v: f64) -> f64 {
+    v - v.floor()
+}
+
+fn data(n: usize, offset: usize) -> Observations {
+    let primes = [2.0f64, 3.0, 5.0, 7.0, 11.0, 13.0];
+    let a: Vec<f64> = primes.iter().map(|p| frac(p.sqrt())).collect();
+    let x: Vec<Vec<f64>> = (offset..offset + n)
+        .map(|i| a.iter().map(|ak| frac(0.5 + i as f64 * ak)).collect())
+        .collect();
+    let y = x
+        .iter()
+        .enumerate()
+        .map(|(i, p)| hartmann6(p) + 0.05 * (1.3 * (offset + i) as f64).sin())
+        .collect();
+    Observations::new(x, y)
+}
+
+fn main() {
+    let args: Vec<usize> = std::env::args()
+        .skip(1)
+        .filter_map(|a| a.parse().ok())
+        .collect();
+    let sizes = if args.is_empty() {
+        vec![100, 250, 500, 1000, 2000, 5000]
+    } else {
+        args
+    };
+    let threads = rayon::current_num_threads();
+    println!("tessera-surrogate GP benchmark, d = 6, {threads} threads, FitOptions::default() (1 + 5 starts)");
+    println!("| n | fit (s) | LML | hyperparameter points |");
+    println!("|---|---|---|---|");
+    let opts = FitOptions::default();
+    for &n in &sizes {
+        let obs = data(n, 0);
+        let t = Instant::now();
+        let gp = match fit(&obs, &opts) {
+            Ok(gp) => gp,
+            Err(e) => {
+                println!("| {n} | failed: {e} | | |");
+                continue;
+            }
+        };
+        let secs = t.elapsed().as_secs_f64();
+        println!(
+            "| {n} | {secs:.3} | {:.3} | {} |",
+            gp.log_marginal_likelihood(),
+            n.min(opts.max_hyper_points)
+        );
+        if n == 1000 {
+            let xs = data(10_000, 100_000).x;
+            let mut times = Vec::new();
+            for _ in 0..5 {
+                let t = Instant::now();
+                let p = gp.predict(&xs);
+                times.push(t.elapsed().as_secs_f64());
+                assert_eq!(p.len(), xs.len());
+            }
+            times.sort_by(f64::total_cmp);
+            println!(
+                "predict 10,000 points from n = 1000: median {:.1} ms (min {:.1} ms) of 5",
+                1e3 * times[2],
+                1e3 * times[0]
+            );
+        }
+    }
+}
