@@ -358,8 +358,8 @@ fn predict_cov_diagonal_equals_predict_sd() {
     let c = gp.predict_cov(&xs);
     for (i, p) in gp.predict(&xs).iter().enumerate() {
         assert!((c[i][i] - p.sd * p.sd).abs() < 1e-10);
-        for j in 0..xs.len() {
-            assert!((c[i][j] - c[j][i]).abs() < 1e-12);
+        for (j, row) in c.iter().enumerate() {
+            assert!((c[i][j] - row[i]).abs() < 1e-12);
         }
     }
 }
