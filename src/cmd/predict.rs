@@ -24,14 +24,20 @@ the range sampled so far (extrapolation) or where the surrogate knows little \
 (sd close to the prior sd). Check how far to trust the surrogates with tessera check-fit.",
     after_help = "\
 Examples:
-  tessera predict --db sweep.db height_sd=2.5 density=1200
-      one point: give every parameter as NAME=VALUE, in the sweep file's units
+  tessera predict --db sweep.db height_sd=5 exclusion=8 density=30
+      one point: every parameter as NAME=VALUE, in the sweep file's units
   tessera predict --db sweep.db --points grid.csv
-      many points: a CSV file whose header names the parameters, one point per row
-  tessera predict --db sweep.db height_sd=2.5 density=1200 --json
-      one JSON array, one object per point, keyed by metric: {\"territory_cv\": {\"mean\": ..., \"sd\": ...}}
-  tessera predict --coordinator http://10.0.0.5:7300 --token-file lab.token height_sd=2.5 density=1200
-      ask the running coordinator (it answers from its latest fits)"
+      many points: a CSV file whose header names the parameters
+  tessera predict --db sweep.db height_sd=5 exclusion=8 density=30 --json
+      a JSON array, one object per point: {\"territory_cv\": {\"mean\": .., \"sd\": ..}}
+  tessera predict --coordinator http://10.0.0.5:7300 --token-file lab.token \\
+      height_sd=5 exclusion=8 density=30
+      ask the running coordinator (it answers from its latest fits)
+
+grid.csv looks like:
+  height_sd,exclusion,density
+  2,8,30
+  10,8,30"
 )]
 #[command(group(clap::ArgGroup::new("source").required(true).args(["db", "coordinator"])))]
 pub struct PredictArgs {
@@ -231,9 +237,13 @@ fn print_human(preds: &[PointPrediction], spec: Option<&Spec>) {
         if k > 0 {
             println!();
         }
-        let coords: Vec<String> = p
-            .point
-            .iter()
+        // In the sweep file's parameter order when it is known.
+        let mut ordered: Vec<(&String, &f64)> = p.point.iter().collect();
+        if let Some(spec) = spec {
+            ordered.sort_by_key(|(name, _)| spec.params.iter().position(|q| &q.name == *name));
+        }
+        let coords: Vec<String> = ordered
+            .into_iter()
             .map(|(name, v)| {
                 let unit = param_unit(spec, name);
                 if unit.is_empty() {
