@@ -449,3 +449,81 @@ fn predict_handler_answers_from_the_stored_fits() {
         .expect_err("no fits yet");
     assert_eq!(e.code(), tonic::Code::FailedPrecondition);
 }
+
+// The same handler behind a real gRPC server on loopback: what a client of
+// the running coordinator receives equals the library's answer.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn predict_over_grpc_on_a_running_coordinator() {
+    use tessera_coordinator::engine::{Engine, OpenOptions};
+    use tessera_coordinator::server::{self, ServeOptions};
+    use tessera_coordinator::service::CoordinatorService;
+    use tessera_proto::v1::coordinator_client::CoordinatorClient;
+
+    let mut s = sweep(1);
+    add_results(&mut s, &design(20, 3), &mut branin_only);
+    let fits = fitter::refit_if_stale(&mut s.store, s.id, &s.spec).expect("fit");
+    let local = query::predict(&fits, &s.spec, &[at(3.0, 2.5), at(50.0, 1.0)]).expect("predict");
+    let Sweep {
+        _dir, db, store, ..
+    } = s;
+    drop(store);
+
+    let engine = Engine::open(OpenOptions {
+        db: db.clone(),
+        spec_text: spec_text(1),
+        spec_file: "sweep.toml".into(),
+        force: false,
+        times: Default::default(),
+    })
+    .expect("open engine");
+    let service = CoordinatorService::new(engine.clone()).with_predict(query::predict_fn(db));
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0")
+        .await
+        .expect("bind");
+    let addr = listener.local_addr().expect("address");
+    let stop = tokio_util::sync::CancellationToken::new();
+    let server_stop = stop.clone();
+    let server = tokio::spawn(server::serve(
+        engine,
+        service,
+        listener,
+        ServeOptions::default(),
+        async move { server_stop.cancelled().await },
+    ));
+
+    let mut client = None;
+    for _ in 0..50 {
+        match CoordinatorClient::connect(format!("http://{addr}")).await {
+            Ok(c) => {
+                client = Some(c);
+                break;
+            }
+            Err(_) => tokio::time::sleep(std::time::Duration::from_millis(50)).await,
+        }
+    }
+    let mut client = client.expect("connect to the coordinator");
+    let req = pb::PredictRequest {
+        points: [(3.0, 2.5), (50.0, 1.0)]
+            .iter()
+            .map(|&(a, b)| pb::PointValues {
+                values: [("x1".to_string(), a), ("x2".to_string(), b)]
+                    .into_iter()
+                    .collect(),
+            })
+            .collect(),
+    };
+    let reply = client
+        .predict(req)
+        .await
+        .expect("predict over gRPC")
+        .into_inner();
+    let remote = query::wire::predictions_from_reply(reply);
+    assert_eq!(remote, local);
+    assert!(remote[1]
+        .warnings
+        .iter()
+        .any(|w| w.contains("extrapolation")));
+
+    stop.cancel();
+    server.await.expect("server task").expect("server");
+}
