@@ -4,6 +4,7 @@
 //! gRPC service.
 
 use crate::committer::{CommitError, StoreHandle};
+use crate::fitter::{self, MetricFit};
 use crate::planner;
 use crate::scheduler::{
     unix_ms, Decided, Grant, JoinInfo, LeaseTimes, Report, ReportOutcome, ScheduleError, Scheduler,
@@ -96,6 +97,10 @@ pub struct Engine {
     draining: AtomicBool,
     db: PathBuf,
     spec_text: String,
+    sweep_id: i64,
+    /// The latest surrogate of every metric, for `Predict`; replaced whole by
+    /// the refit task.
+    fits: Mutex<Vec<MetricFit>>,
 }
 
 impl std::fmt::Debug for Engine {
@@ -164,6 +169,17 @@ impl Engine {
         }
         let points = store.points(sweep.id)?;
         let evaluations = store.evaluations(sweep.id)?;
+        let fits = match fitter::stale_jobs(&store, sweep.id, &spec) {
+            Ok(plan) => {
+                let mut f = plan.current;
+                f.extend(plan.outdated);
+                f
+            }
+            Err(e) => {
+                tracing::warn!(error = %e, "stored surrogates cannot be read; they will be refitted");
+                Vec::new()
+            }
+        };
         let nonce = format!("{:x}", unix_ms() ^ (u64::from(std::process::id()) << 40));
         let fixed_json =
             serde_json::to_string(&spec.model.fixed).unwrap_or_else(|_| "{}".to_string());
@@ -183,6 +199,8 @@ impl Engine {
             draining: AtomicBool::new(false),
             db: opts.db,
             spec_text,
+            sweep_id: sweep.id,
+            fits: Mutex::new(fits),
         }))
     }
 
@@ -393,6 +411,72 @@ impl Engine {
                     lock(&self.sched).set_planning(false);
                 }
             }
+        }
+    }
+
+    /// The latest surrogate of every metric (may lag the newest results).
+    pub fn fits(&self) -> Vec<MetricFit> {
+        lock(&self.fits).clone()
+    }
+
+    /// Keeps the metric surrogates current until `stop` is cancelled: when
+    /// new results have arrived, fits the stale metrics on a blocking thread
+    /// (never holding the scheduler), stores them, and serves them to `Predict`.
+    pub async fn run_refits(self: Arc<Self>, stop: CancellationToken, every: Duration) {
+        let mut seen = u64::MAX;
+        loop {
+            tokio::select! {
+                _ = stop.cancelled() => break,
+                _ = tokio::time::sleep(every) => {}
+            }
+            let done = self.status().done;
+            if done == seen || done == 0 {
+                continue;
+            }
+            seen = done;
+            let spec = self.spec();
+            let sweep_id = self.sweep_id;
+            let plan_spec = spec.clone();
+            let plan = match self
+                .store
+                .call(move |s| fitter::stale_jobs(s, sweep_id, &plan_spec))
+                .await
+            {
+                Ok(Ok(p)) => p,
+                Ok(Err(e)) => {
+                    tracing::warn!(error = %e, "cannot read results for refitting");
+                    continue;
+                }
+                Err(_) => break,
+            };
+            if plan.todo.is_empty() {
+                continue;
+            }
+            let todo = plan.todo.clone();
+            let fresh = tokio::select! {
+                _ = stop.cancelled() => break,
+                r = tokio::task::spawn_blocking(move || fitter::run_jobs(&todo)) => match r {
+                    Ok(f) => f,
+                    Err(e) => {
+                        tracing::error!(error = %e, "refit task failed");
+                        continue;
+                    }
+                },
+            };
+            let to_save = fresh.clone();
+            match self
+                .store
+                .call(move |s| fitter::save_fits(s, sweep_id, &to_save))
+                .await
+            {
+                Ok(Ok(())) => {}
+                Ok(Err(e)) => tracing::warn!(error = %e, "cannot store surrogates"),
+                Err(_) => break,
+            }
+            let fresh: Vec<MetricFit> = fresh.iter().filter_map(|f| fitter::as_stored(f).ok()).collect();
+            let merged = fitter::merge(plan, &fresh);
+            tracing::info!(metrics = merged.len(), results = done, "surrogates refitted");
+            *lock(&self.fits) = merged;
         }
     }
 

@@ -19,12 +19,24 @@ use tonic::transport::{Identity, Server, ServerTlsConfig};
 use tonic::{Request, Status};
 
 /// How the server protects itself.
-#[derive(Clone, Debug, Default)]
+#[derive(Clone, Debug)]
 pub struct ServeOptions {
     /// Every RPC (except health checks) must carry `authorization: Bearer <token>`.
     pub token: Option<String>,
     /// PEM certificate chain and private key for TLS.
     pub tls: Option<(Vec<u8>, Vec<u8>)>,
+    /// How often to check for new results and refit the metric surrogates.
+    pub refit_every: std::time::Duration,
+}
+
+impl Default for ServeOptions {
+    fn default() -> Self {
+        ServeOptions {
+            token: None,
+            tls: None,
+            refit_every: std::time::Duration::from_secs(5),
+        }
+    }
 }
 
 /// Why the server stopped with an error.
@@ -102,6 +114,8 @@ pub async fn serve(
     let stop = CancellationToken::new();
     // The planner and lease-expiry loop; ends when `stop` is cancelled below.
     let planner = tokio::spawn(engine.clone().run_planner(stop.clone()));
+    // Background surrogate refits for `Predict`; ends when `stop` is cancelled.
+    let refits = tokio::spawn(engine.clone().run_refits(stop.clone(), opts.refit_every));
 
     let (health, health_service) = tonic_health::server::health_reporter();
     health
@@ -137,6 +151,7 @@ pub async fn serve(
         .await;
     stop.cancel();
     let _ = planner.await;
+    let _ = refits.await;
     engine.flush().await;
     result?;
     Ok(())

@@ -341,11 +341,18 @@ impl Coordinator for CoordinatorService {
         &self,
         req: Request<pb::PredictRequest>,
     ) -> Result<Response<pb::PredictReply>, Status> {
-        match &self.predict {
-            Some(f) => f(req.into_inner()).map(Response::new),
-            None => Err(Status::unimplemented(
-                "this coordinator has no surrogate query engine; use `tessera predict --db FILE`",
-            )),
+        let req = req.into_inner();
+        if let Some(f) = &self.predict {
+            return f(req).map(Response::new);
         }
+        let fits = self.engine.fits();
+        if fits.is_empty() {
+            return Err(Status::failed_precondition(
+                "no surrogate yet: it is fitted once results arrive (every few seconds); try again shortly",
+            ));
+        }
+        crate::query::wire::answer(&fits, &self.engine.spec(), &req)
+            .map(Response::new)
+            .map_err(crate::query::wire::status_of)
     }
 }

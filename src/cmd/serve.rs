@@ -143,7 +143,11 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
             engine.clone(),
             service,
             listener,
-            ServeOptions { token, tls },
+            ServeOptions {
+                token,
+                tls,
+                ..ServeOptions::default()
+            },
             shutdown,
         )
         .await?;

@@ -330,3 +330,52 @@ fn sigterm_hands_work_back_and_both_exit_cleanly() {
     assert_eq!(field(&st, "done"), 0);
     assert_eq!(field(&st, "queued"), 3);
 }
+
+/// The running coordinator answers `Predict` over gRPC once its background
+/// refit has seen the results, with the same numbers as the offline query
+/// from the database file.
+#[test]
+fn running_coordinator_answers_predict_like_the_database() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let spec = branin_spec(dir, 12, 1, 0);
+    let db = dir.join("sweep.db");
+    let port = free_port();
+    let coord = serve(dir, &spec, port, &[]);
+    let w = worker(dir, port, "alpha", 2, &[]);
+    wait_for(&db, Duration::from_secs(60), "the sweep to finish", &[&coord, &w], |st| {
+        st.get("finished").and_then(|v| v.as_bool()) == Some(true)
+    });
+    let url = format!("http://127.0.0.1:{port}");
+    let ask = |source: &[&str]| {
+        tessera()
+            .arg("predict")
+            .args(source)
+            .args(["x1=3.14", "x2=2.27", "--json"])
+            .output()
+            .expect("predict")
+    };
+    let start = std::time::Instant::now();
+    let online = loop {
+        let out = ask(&["--coordinator", &url]);
+        if out.status.success() {
+            break out;
+        }
+        assert!(
+            start.elapsed() < Duration::from_secs(40),
+            "predict over gRPC kept failing: {}\n{}",
+            String::from_utf8_lossy(&out.stderr),
+            coord.output()
+        );
+        std::thread::sleep(Duration::from_millis(500));
+    };
+    let offline = ask(&["--db", db.to_str().expect("utf-8 path")]);
+    assert!(offline.status.success(), "{}", String::from_utf8_lossy(&offline.stderr));
+    let a: serde_json::Value = serde_json::from_slice(&online.stdout).expect("json");
+    let b: serde_json::Value = serde_json::from_slice(&offline.stdout).expect("json");
+    let mean = |v: &serde_json::Value| v[0]["value"]["mean"].as_f64().expect("mean of value");
+    let sd = |v: &serde_json::Value| v[0]["value"]["sd"].as_f64().expect("sd of value");
+    assert!(mean(&a).is_finite() && sd(&a) >= 0.0);
+    assert!((mean(&a) - mean(&b)).abs() < 1e-9 * (1.0 + mean(&b).abs()), "{a} vs {b}");
+    assert!((sd(&a) - sd(&b)).abs() < 1e-9 * (1.0 + sd(&b)), "{a} vs {b}");
+}
