@@ -62,9 +62,12 @@ struct Sweep {
 }
 
 fn sweep(replicates: u32) -> Sweep {
+    sweep_from(spec_text(replicates))
+}
+
+fn sweep_from(text: String) -> Sweep {
     let dir = tempfile::tempdir().expect("temp dir");
     let db = dir.path().join("sweep.db");
-    let text = spec_text(replicates);
     let spec = spec::parse(&text, "sweep.toml").expect("valid sweep file");
     let mut store = Store::open(&db).expect("open store");
     let sw = store
@@ -526,4 +529,25 @@ async fn predict_over_grpc_on_a_running_coordinator() {
 
     stop.cancel();
     server.await.expect("server task").expect("server");
+}
+
+// Without an objective metric, the calibration discrepancy
+// sum ((m - value) / sd)^2 (Craig et al. 1997, squared) gets its own surrogate.
+#[test]
+fn a_calibration_sweep_also_fits_the_discrepancy() {
+    let text = spec_text(1).replace(
+        "[objective]\nminimize = \"value\"\n",
+        "[[target]]\nmetric = \"value\"\nvalue = 10.0\nsd = 2.0\n",
+    );
+    let mut s = sweep_from(text);
+    assert!(s.spec.objective.is_none() && s.spec.targets.len() == 1);
+    let pts = design(12, 2);
+    add_results(&mut s, &pts, &mut branin_only);
+    let fits = fitter::refit_if_stale(&mut s.store, s.id, &s.spec).expect("fit");
+    let names: Vec<&str> = fits.iter().map(|f| f.metric.as_str()).collect();
+    assert_eq!(names, ["calibration discrepancy", "value"]);
+    let d = fit_of(&fits, "calibration discrepancy");
+    let want = ((branin(pts[0][0], pts[0][1]) - 10.0) / 2.0).powi(2);
+    assert!((d.gp.observed_y()[0] - want).abs() < 1e-9 * want.max(1.0));
+    assert_eq!(d.unit, "");
 }
