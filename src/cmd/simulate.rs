@@ -64,7 +64,8 @@ pub struct SimulateArgs {
     /// (use sh -c '...' for pipes). May be given several times.
     #[arg(long = "command", value_name = "NAME=CMDLINE", value_parser = parse_command)]
     pub commands: Vec<(String, Vec<String>)>,
-    /// Keep the run's working directory (printed on stderr) for inspection.
+    /// Keep the run's working directory of your own simulator for inspection
+    /// (where it is is printed on stderr).
     #[arg(long)]
     pub keep_workdirs: bool,
     /// Where run directories of your own simulators are made.
@@ -201,6 +202,7 @@ pub fn run(args: SimulateArgs) -> anyhow::Result<ExitCode> {
     if let Some(root) = &args.workdir_root {
         cfg.workdir_root = root.clone();
     }
+    let kept_under = (args.keep_workdirs && is_external).then(|| cfg.workdir_root.clone());
     let runners = Runners::new(cfg);
     let mut req = RunRequest::new(args.model.clone());
     req.params = values.numbers;
@@ -230,6 +232,12 @@ pub fn run(args: SimulateArgs) -> anyhow::Result<ExitCode> {
         runners.run(req, cancel).await
     });
     let elapsed = t0.elapsed();
+    if let Some(root) = kept_under {
+        eprintln!(
+            "the run directory was kept: the newest eval-0-* folder under {}",
+            root.display()
+        );
+    }
     match outcome {
         Ok(metrics) => {
             if args.json {
