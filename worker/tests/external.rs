@@ -42,11 +42,30 @@ fn alive(pid: u32) -> bool {
     }
 }
 
+/// The pid the script wrote to `file`, waiting up to 10 s for it. Panics if
+/// none appears: the test would otherwise check nothing.
+fn background_pid(file: &Path) -> u32 {
+    let t0 = Instant::now();
+    loop {
+        if let Some(pid) = std::fs::read_to_string(file)
+            .ok()
+            .and_then(|t| t.trim().parse().ok())
+        {
+            return pid;
+        }
+        assert!(
+            t0.elapsed() < Duration::from_secs(10),
+            "the script never wrote its background pid to {}",
+            file.display()
+        );
+        std::thread::sleep(Duration::from_millis(10));
+    }
+}
+
 /// Waits (up to 5 s) for the background process whose pid a script wrote to
 /// `file` to be gone; returns its pid if it is still alive.
 fn still_running(file: &Path) -> Option<u32> {
-    let text = std::fs::read_to_string(file).ok()?;
-    let pid: u32 = text.trim().parse().ok()?;
+    let pid = background_pid(file);
     let t0 = Instant::now();
     while alive(pid) && t0.elapsed() < Duration::from_secs(5) {
         std::thread::sleep(Duration::from_millis(20));
@@ -265,13 +284,6 @@ fn sleeper_script(pidfile: &Path) -> String {
     )
 }
 
-fn wait_for_file(path: &Path) {
-    let t0 = Instant::now();
-    while !path.exists() && t0.elapsed() < Duration::from_secs(10) {
-        std::thread::sleep(Duration::from_millis(10));
-    }
-}
-
 #[tokio::test]
 async fn timeout_kills_the_whole_process_group() {
     let tmp = tempfile::tempdir().expect("tempdir");
@@ -279,7 +291,7 @@ async fn timeout_kills_the_whole_process_group() {
     let script = sleeper_script(&pidfile);
     let r = runners(tmp.path(), &[("slow", &sh(&script))], false);
     let mut req = RunRequest::new("slow");
-    req.timeout = Some(Duration::from_millis(700));
+    req.timeout = Some(Duration::from_millis(1500));
     let t0 = Instant::now();
     let e = run(&r, req).await.expect_err("times out");
     assert_eq!(e.kind, FailureKind::Timeout);
@@ -298,7 +310,7 @@ async fn cancel_kills_the_whole_process_group() {
     let trigger = cancel.clone();
     let pf = pidfile.clone();
     let canceller = tokio::task::spawn_blocking(move || {
-        wait_for_file(&pf);
+        background_pid(&pf);
         trigger.cancel();
     });
     let t0 = Instant::now();
@@ -320,7 +332,7 @@ async fn dropping_the_run_kills_the_whole_process_group() {
     let r = runners(tmp.path(), &[("slow", &sh(&script))], false);
     let fut = r.run(RunRequest::new("slow"), CancellationToken::new());
     let pf = pidfile.clone();
-    let waiter = tokio::task::spawn_blocking(move || wait_for_file(&pf));
+    let waiter = tokio::task::spawn_blocking(move || background_pid(&pf));
     tokio::select! {
         _ = fut => panic!("the run should not finish"),
         _ = waiter => {}
