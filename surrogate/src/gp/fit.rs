@@ -19,8 +19,8 @@ use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
-use super::kernel::{scaled_sq_dist, KernelKind};
-use super::linalg::cholesky_llt;
+use super::kernel::KernelKind;
+use super::linalg::{cholesky_llt, kernel_lower_unit};
 use super::{standardisation, validate, Gp, GpError, Hyper, Observations, LN_2PI};
 
 /// Options of [`super::fit`].
@@ -109,19 +109,7 @@ impl Data<'_> {
         // Unit-variance kernel and its length-scale factor, lower triangles.
         let mut ku = vec![0.0; n * n];
         let mut g = vec![0.0; n * n];
-        ku.par_chunks_mut(n)
-            .zip(g.par_chunks_mut(n))
-            .enumerate()
-            .for_each(|(j, (kc, gc))| {
-                kc[j] = 1.0;
-                let xj = &x[j * d..(j + 1) * d];
-                for i in (j + 1)..n {
-                    let r2 = scaled_sq_dist(&x[i * d..(i + 1) * d], xj, &inv_l);
-                    let (k, gg) = kernel.unit_with_grad(r2);
-                    kc[i] = k;
-                    gc[i] = gg;
-                }
-            });
+        kernel_lower_unit(kernel, x, d, &inv_l, &mut ku, Some(&mut g));
         let mut a: Vec<f64> = ku.iter().map(|v| sf2 * v).collect();
         for i in 0..n {
             a[i * n + i] += nug + self.noise[i];

@@ -5,7 +5,7 @@ use faer::linalg::solvers::Llt;
 use faer::{MatMut, MatRef, Side};
 use rayon::prelude::*;
 
-use super::kernel::{scaled_sq_dist, KernelKind};
+use super::kernel::{scaled_transpose, unit_column, KernelKind};
 use super::GpError;
 
 /// Jitter ladder, relative to the mean diagonal: tried in order when the
@@ -31,15 +31,57 @@ pub(crate) fn kernel_lower(
 ) -> Vec<f64> {
     let n = extra_diag.len();
     let mut k = vec![0.0; n * n];
-    k.par_chunks_mut(n.max(1)).enumerate().for_each(|(j, col)| {
-        let xj = &x[j * d..(j + 1) * d];
-        col[j] = signal_var + extra_diag[j];
-        for i in (j + 1)..n {
-            let r2 = scaled_sq_dist(&x[i * d..(i + 1) * d], xj, inv_l);
-            col[i] = signal_var * kernel.unit(r2);
+    kernel_lower_unit(kernel, x, d, inv_l, &mut k, None);
+    for (i, v) in k.iter_mut().enumerate() {
+        *v *= signal_var;
+        if i % (n + 1) == 0 {
+            *v += extra_diag[i / (n + 1)];
         }
-    });
+    }
     k
+}
+
+/// Lower triangle of the unit-variance kernel matrix (diagonal 1) into `k`
+/// (n x n column-major), and optionally the length-scale factor into `g`.
+/// Columns in parallel; each column's loop is compiled for the best SIMD
+/// level found at run time (pulp).
+pub(crate) fn kernel_lower_unit(
+    kernel: KernelKind,
+    x: &[f64],
+    d: usize,
+    inv_l: &[f64],
+    k: &mut [f64],
+    g: Option<&mut [f64]>,
+) {
+    let n = (k.len() as f64).sqrt().round() as usize;
+    if n == 0 {
+        return;
+    }
+    let xt = scaled_transpose(x, d, inv_l);
+    let arch = pulp::Arch::new();
+    let column = |j: usize, kc: &mut [f64], gc: Option<&mut [f64]>| {
+        let zj: Vec<f64> = (0..d).map(|q| xt[q * n + j]).collect();
+        kc[j] = 1.0;
+        let (_, below) = kc.split_at_mut(j + 1);
+        match gc {
+            Some(gc) => {
+                let (_, gbelow) = gc.split_at_mut(j + 1);
+                arch.dispatch(|| unit_column(kernel, &xt, n, j + 1, &zj, below, Some(gbelow)));
+            }
+            None => arch.dispatch(|| unit_column(kernel, &xt, n, j + 1, &zj, below, None)),
+        }
+    };
+    match g {
+        Some(g) => k
+            .par_chunks_mut(n)
+            .zip(g.par_chunks_mut(n))
+            .enumerate()
+            .for_each(|(j, (kc, gc))| column(j, kc, Some(gc))),
+        None => k
+            .par_chunks_mut(n)
+            .enumerate()
+            .for_each(|(j, kc)| column(j, kc, None)),
+    }
 }
 
 /// Cross-covariance s_f^2 k(x_i, z_j) for training rows x (n x d) and query
@@ -58,14 +100,17 @@ pub(crate) fn kernel_cross(
     if n == 0 {
         return k;
     }
+    let xt = scaled_transpose(x, d, inv_l);
+    let arch = pulp::Arch::new();
     k.par_chunks_mut(n).enumerate().for_each(|(j, col)| {
-        let zj = &z[j * d..(j + 1) * d];
-        for (i, c) in col.iter_mut().enumerate() {
-            let r2 = scaled_sq_dist(&x[i * d..(i + 1) * d], zj, inv_l);
-            *c = signal_var * kernel.unit(r2);
-        }
+        let zj: Vec<f64> = (0..d).map(|q| z[j * d + q] * inv_l[q]).collect();
+        arch.dispatch(|| {
+            unit_column(kernel, &xt, n, 0, &zj, col, None);
+            for c in col.iter_mut() {
+                *c *= signal_var;
+            }
+        });
     });
-    debug_assert_eq!(k.len(), n * m);
     k
 }
 
