@@ -308,3 +308,48 @@ fn poisson_regularity_matches_its_rayleigh_derivation() {
     let ratio = (PI.sqrt() / 2.0) / ((4.0 - PI) / 4.0).sqrt();
     assert!((poisson_regularity_index() - ratio).abs() < 1e-12);
 }
+
+#[test]
+fn only_growth_rate_times_duration_matters() {
+    // Dimensional analysis (exact for this model): time enters only through
+    // the number of steps, duration / dt = 2 growth_rate duration / voxel, so
+    // doubling the rate and halving the time gives the same run.
+    let a = Params {
+        growth_rate: 2.0,
+        duration_h: 12.0,
+        ..Params::default()
+    };
+    let b = Params {
+        growth_rate: 4.0,
+        duration_h: 6.0,
+        ..Params::default()
+    };
+    assert_eq!(sim(&a, 4).metrics, sim(&b, 4).metrics);
+    let c = Params {
+        growth_rate: 4.0,
+        duration_h: 12.0,
+        ..Params::default()
+    };
+    assert!(sim(&c, 4).metrics["coverage"] > sim(&a, 4).metrics["coverage"]);
+}
+
+#[test]
+fn contact_inhibition_slows_the_filling_of_the_layer() {
+    // Model property (our own design, docs/tiling-model.md): the claim
+    // probability next to foreign territory is multiplied by exp(-k n), so at
+    // a time when territories meet, a larger k leaves more of the layer free.
+    let coverage = |k| {
+        let p = Params {
+            contact_inhibition: k,
+            duration_h: 12.0,
+            ..Params::default()
+        };
+        mean(
+            &(0..3)
+                .map(|s| sim(&p, s).metrics["coverage"])
+                .collect::<Vec<_>>(),
+        )
+    };
+    let c: Vec<f64> = [0.0, 1.0, 3.0, 8.0].into_iter().map(coverage).collect();
+    assert!(c.windows(2).all(|w| w[0] > w[1]), "{c:?}");
+}
