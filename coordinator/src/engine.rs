@@ -473,9 +473,16 @@ impl Engine {
                 Ok(Err(e)) => tracing::warn!(error = %e, "cannot store surrogates"),
                 Err(_) => break,
             }
-            let fresh: Vec<MetricFit> = fresh.iter().filter_map(|f| fitter::as_stored(f).ok()).collect();
+            let fresh: Vec<MetricFit> = fresh
+                .iter()
+                .filter_map(|f| fitter::as_stored(f).ok())
+                .collect();
             let merged = fitter::merge(plan, &fresh);
-            tracing::info!(metrics = merged.len(), results = done, "surrogates refitted");
+            tracing::info!(
+                metrics = merged.len(),
+                results = done,
+                "surrogates refitted"
+            );
             *lock(&self.fits) = merged;
         }
     }

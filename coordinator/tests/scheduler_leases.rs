@@ -107,7 +107,7 @@ fn an_expired_lease_is_handed_out_again_and_a_late_first_result_is_accepted() {
     let first = ga[0].clone();
     // Renewed in time: still held.
     let lost = s
-        .renew(&a, &[first.lease_id.clone()], t0 + Duration::from_secs(8))
+        .renew(&a, std::slice::from_ref(&first.lease_id), t0 + Duration::from_secs(8))
         .expect("renew");
     assert!(lost.is_empty());
     // Not renewed for longer than the lease: expired, queued at the front.
@@ -119,7 +119,7 @@ fn an_expired_lease_is_handed_out_again_and_a_late_first_result_is_accepted() {
         "expired work goes first"
     );
     // The old holder learns it lost the lease.
-    let lost = s.renew(&a, &[first.lease_id.clone()], t1).expect("renew");
+    let lost = s.renew(&a, std::slice::from_ref(&first.lease_id), t1).expect("renew");
     assert_eq!(lost, vec![first.lease_id.clone()]);
     // Its late result is still accepted if it comes first (the store decides).
     let d = s.decide(vec![ok(first.evaluation_id, &first.lease_id, 1.0)]);
@@ -178,7 +178,7 @@ fn after_a_restart_a_worker_renewing_an_old_lease_re_adopts_it() {
     let w = s.join(info(&["branin"]), t).expect("join");
     // A lease id from a previous coordinator (another nonce) for evaluation 12.
     let old = "12.oldnonce.7".to_string();
-    let lost = s.renew(&w, &[old.clone()], t).expect("renew");
+    let lost = s.renew(&w, std::slice::from_ref(&old), t).expect("renew");
     assert!(lost.is_empty(), "still queued: re-adopted");
     let granted = s.request_work(&w, 4, t).expect("work");
     assert_eq!(granted.len(), 3, "evaluation 12 is not handed out twice");

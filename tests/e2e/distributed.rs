@@ -343,9 +343,13 @@ fn running_coordinator_answers_predict_like_the_database() {
     let port = free_port();
     let coord = serve(dir, &spec, port, &[]);
     let w = worker(dir, port, "alpha", 2, &[]);
-    wait_for(&db, Duration::from_secs(60), "the sweep to finish", &[&coord, &w], |st| {
-        st.get("finished").and_then(|v| v.as_bool()) == Some(true)
-    });
+    wait_for(
+        &db,
+        Duration::from_secs(60),
+        "the sweep to finish",
+        &[&coord, &w],
+        |st| st.get("finished").and_then(|v| v.as_bool()) == Some(true),
+    );
     let url = format!("http://127.0.0.1:{port}");
     let ask = |source: &[&str]| {
         tessera()
@@ -370,12 +374,22 @@ fn running_coordinator_answers_predict_like_the_database() {
         std::thread::sleep(Duration::from_millis(500));
     };
     let offline = ask(&["--db", db.to_str().expect("utf-8 path")]);
-    assert!(offline.status.success(), "{}", String::from_utf8_lossy(&offline.stderr));
+    assert!(
+        offline.status.success(),
+        "{}",
+        String::from_utf8_lossy(&offline.stderr)
+    );
     let a: serde_json::Value = serde_json::from_slice(&online.stdout).expect("json");
     let b: serde_json::Value = serde_json::from_slice(&offline.stdout).expect("json");
     let mean = |v: &serde_json::Value| v[0]["value"]["mean"].as_f64().expect("mean of value");
     let sd = |v: &serde_json::Value| v[0]["value"]["sd"].as_f64().expect("sd of value");
     assert!(mean(&a).is_finite() && sd(&a) >= 0.0);
-    assert!((mean(&a) - mean(&b)).abs() < 1e-9 * (1.0 + mean(&b).abs()), "{a} vs {b}");
-    assert!((sd(&a) - sd(&b)).abs() < 1e-9 * (1.0 + sd(&b)), "{a} vs {b}");
+    assert!(
+        (mean(&a) - mean(&b)).abs() < 1e-9 * (1.0 + mean(&b).abs()),
+        "{a} vs {b}"
+    );
+    assert!(
+        (sd(&a) - sd(&b)).abs() < 1e-9 * (1.0 + sd(&b)),
+        "{a} vs {b}"
+    );
 }

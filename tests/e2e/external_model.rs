@@ -58,7 +58,11 @@ minimize = "loss"
     assert!(out.status.success(), "{stderr}");
     let db = dir.join("sweep.db");
     let st = status(&db).expect("status");
-    assert_eq!(st.get("finished").and_then(|v| v.as_bool()), Some(true), "{st}");
+    assert_eq!(
+        st.get("finished").and_then(|v| v.as_bool()),
+        Some(true),
+        "{st}"
+    );
     // Which points fail depends on where the design put them: count from the
     // export (a Latin hypercube of 8 has at least one x in [0.875, 1)).
     let rows = export_rows(&db);

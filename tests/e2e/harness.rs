@@ -158,7 +158,11 @@ pub fn export_rows(db: &Path) -> Vec<std::collections::BTreeMap<String, String>>
         .records()
         .map(|r| {
             let r = r.expect("CSV row");
-            header.iter().cloned().zip(r.iter().map(str::to_string)).collect()
+            header
+                .iter()
+                .cloned()
+                .zip(r.iter().map(str::to_string))
+                .collect()
         })
         .collect()
 }

@@ -9,3 +9,4 @@ mod distributed;
 mod external_model;
 mod harness;
 mod local_run;
+mod tls_health;

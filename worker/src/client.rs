@@ -113,6 +113,17 @@ fn connect(opts: &WorkerOptions) -> Result<Client, WorkerError> {
         .tcp_nodelay(true)
         .http2_keep_alive_interval(Duration::from_secs(20))
         .keep_alive_while_idle(true);
+    let https = opts.coordinator.starts_with("https://");
+    if https && opts.ca_pem.is_none() {
+        return Err(bad(
+            "it uses https://, but no --ca was given: give the CA certificate (PEM) that signed the coordinator's certificate".into(),
+        ));
+    }
+    if !https && opts.ca_pem.is_some() {
+        return Err(bad(
+            "--ca was given, so the coordinator uses TLS: write the address with https://".into(),
+        ));
+    }
     if let Some(ca) = &opts.ca_pem {
         ep = ep
             .tls_config(ClientTlsConfig::new().ca_certificate(Certificate::from_pem(ca)))
@@ -142,6 +153,12 @@ enum Trouble {
 }
 
 fn classify(s: &Status) -> Trouble {
+    if s.message().contains("invalid peer certificate") {
+        return Trouble::Fatal(format!(
+            "cannot verify the coordinator's TLS certificate ({}): check that --ca is the CA that signed it and that the address matches the certificate's name",
+            s.message()
+        ));
+    }
     match s.code() {
         Code::Unauthenticated => Trouble::Fatal(format!(
             "the coordinator rejected this worker: {}",
