@@ -95,6 +95,11 @@ fn progress_line(st: &SweepStatus, started: Instant, done_at_start: u64) -> Stri
     )
 }
 
+fn short(x: f64) -> String {
+    let s = format!("{x:.3}");
+    s.trim_end_matches('0').trim_end_matches('.').to_string()
+}
+
 /// Runs `tessera run`.
 pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
     let spec_text = std::fs::read_to_string(&args.spec)
@@ -243,7 +248,16 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
             );
             return anyhow::Ok(ExitCode::from(130));
         }
-        eprintln!("results: tessera export --db {}", db.display());
+        let first = spec
+            .params
+            .iter()
+            .map(|p| format!("{}={}", p.name, short((p.lo + p.hi) / 2.0)))
+            .collect::<Vec<_>>()
+            .join(" ");
+        eprintln!("next:");
+        eprintln!("  tessera predict --db {} {first}    predicted metrics with uncertainty", db.display());
+        eprintln!("  tessera check-fit --db {}          can the surrogate be trusted?", db.display());
+        eprintln!("  tessera export --db {}             every run as CSV", db.display());
         anyhow::Ok(ExitCode::SUCCESS)
     })?;
     Ok(outcome)
