@@ -216,7 +216,7 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
             tokio::select! {
                 _ = &mut ctrl_c => {
                     interrupted = true;
-                    eprintln!("stopping: letting running work finish (Ctrl-C again to force)");
+                    eprintln!("stopping: letting running work finish (up to 5 s), then storing what arrived");
                     break;
                 }
                 _ = tokio::time::sleep(Duration::from_millis(200)) => {}

@@ -31,3 +31,69 @@ fn local_run_completes_and_rerun_continues() {
     assert_each_once_all_ok(&db, 16);
     let _ = Duration::from_secs(0);
 }
+
+/// A database holds one sweep: another sweep file for it is refused with a
+/// message that says what to do; `--force` resumes the stored sweep.
+#[test]
+fn a_different_sweep_file_for_the_same_database_is_refused() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let spec = branin_spec(dir, 4, 1, 0);
+    let db = dir.join("sweep.db");
+    let first = tessera().arg("run").arg(&spec).output().expect("run");
+    assert!(
+        first.status.success(),
+        "{}",
+        String::from_utf8_lossy(&first.stderr)
+    );
+    let text = std::fs::read_to_string(&spec).expect("spec");
+    let other = dir.join("other.toml");
+    std::fs::write(&other, text.replace("budget = 4", "budget = 9")).expect("write");
+    let out = tessera()
+        .arg("run")
+        .arg(&other)
+        .arg("--db")
+        .arg(&db)
+        .output()
+        .expect("run");
+    assert!(!out.status.success());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("different sweep file") && err.contains("--force"),
+        "{err}"
+    );
+    let forced = tessera()
+        .arg("run")
+        .arg(&other)
+        .arg("--db")
+        .arg(&db)
+        .arg("--force")
+        .output()
+        .expect("run");
+    assert!(
+        forced.status.success(),
+        "{}",
+        String::from_utf8_lossy(&forced.stderr)
+    );
+    // The stored sweep (budget 4) is the one that continues.
+    let st = status(&db).expect("status");
+    assert_eq!(field(&st, "budget"), 4);
+    assert_eq!(field(&st, "done"), 4);
+}
+
+/// A sweep file with an error is refused before anything is written.
+#[test]
+fn an_invalid_sweep_file_is_refused_with_its_line_and_no_database() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let spec = dir.join("bad.toml");
+    std::fs::write(&spec, "name = \"x\"\nbudget = 4\nreplicates = 0\n[model]\nname = \"branin\"\n[params.x1]\nrange = [0.0, 1.0]\n[objective]\nminimize = \"value\"\n").expect("write");
+    let out = tessera().arg("run").arg(&spec).output().expect("run");
+    assert!(!out.status.success());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains(":3:"), "names line 3: {err}");
+    assert!(
+        !dir.join("bad.db").exists(),
+        "no database written for an invalid sweep file"
+    );
+}
