@@ -18,9 +18,10 @@ mod cmd;
 #[derive(Parser, Debug)]
 #[command(name = "tessera", version, about, long_about, after_help = cmd::EXAMPLES)]
 struct Cli {
-    /// How much to log on stderr: error, warn, info, debug or trace.
-    #[arg(long, global = true, default_value = "warn", value_name = "LEVEL")]
-    log_level: String,
+    /// How much to log on stderr: error, warn, info, debug or trace
+    /// [default: info for serve and worker, warn otherwise].
+    #[arg(long, global = true, value_name = "LEVEL")]
+    log_level: Option<String>,
     /// Log format on stderr: text (for people) or json (for log collectors).
     #[arg(long, global = true, default_value = "text", value_name = "FORMAT")]
     log_format: cmd::LogFormat,
@@ -54,7 +55,14 @@ enum Command {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
-    if let Err(e) = cmd::init_logging(&cli.log_level, cli.log_format) {
+    // Long-running services say what they do; one-shot commands stay quiet.
+    let level = cli.log_level.clone().unwrap_or_else(|| match cli.command {
+        Command::Serve(_) | Command::Worker(_) => {
+            "warn,tessera_coordinator=info,tessera_worker=info".to_string()
+        }
+        _ => "warn".to_string(),
+    });
+    if let Err(e) = cmd::init_logging(&level, cli.log_format) {
         eprintln!("error: {e:#}");
         return ExitCode::from(2);
     }

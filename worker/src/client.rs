@@ -106,6 +106,16 @@ fn connect(opts: &WorkerOptions) -> Result<Client, WorkerError> {
         url: opts.coordinator.clone(),
         message,
     };
+    let url = &opts.coordinator;
+    let rest = url
+        .strip_prefix("http://")
+        .or_else(|| url.strip_prefix("https://"))
+        .ok_or_else(|| bad("write it as http://HOST:PORT (or https:// with TLS), for example http://10.0.0.5:7300".into()))?;
+    if rest.is_empty() || rest.starts_with(':') || rest.starts_with('/') {
+        return Err(bad(
+            "it names no host; for example http://10.0.0.5:7300".into()
+        ));
+    }
     let mut ep = Endpoint::from_shared(opts.coordinator.clone())
         .map_err(|e| bad(format!("{e}; expected for example http://10.0.0.5:7300")))?
         .connect_timeout(Duration::from_secs(5))
@@ -290,6 +300,7 @@ pub async fn run(
     let mut cancelled_rest = false;
     let mut poll_after = Duration::ZERO;
     let mut unreachable_since: Option<Instant> = None;
+    let mut last_reminder = Instant::now();
     tokio::pin!(shutdown);
 
     loop {
@@ -326,9 +337,19 @@ pub async fn run(
                     Trouble::Fatal(m) => return Err(WorkerError::Refused(m)),
                     Trouble::Rejoin | Trouble::Transient(_) => {
                         let wait = backoff.next();
-                        if unreachable_since.is_none() {
-                            tracing::warn!(error = %s.message(), "coordinator unreachable; retrying with backoff");
-                            unreachable_since = Some(now);
+                        match unreachable_since {
+                            None => {
+                                tracing::warn!(coordinator = %opts.coordinator, error = %s.message(), "coordinator unreachable; retrying with backoff");
+                                unreachable_since = Some(now);
+                                last_reminder = now;
+                            }
+                            Some(since)
+                                if now.duration_since(last_reminder) > Duration::from_secs(60) =>
+                            {
+                                tracing::warn!(coordinator = %opts.coordinator, waited_s = now.duration_since(since).as_secs(), error = %s.message(), "still cannot reach the coordinator; is it running, and is the address right?");
+                                last_reminder = now;
+                            }
+                            Some(_) => {}
                         }
                         next_try = now + wait;
                     }
