@@ -363,3 +363,18 @@ fn predict_cov_diagonal_equals_predict_sd() {
         }
     }
 }
+
+#[test]
+fn too_many_observations_is_a_typed_error() {
+    // Memory guard (MAX_OBSERVATIONS), checked before any allocation of the n x n matrix.
+    use tessera_surrogate::gp::MAX_OBSERVATIONS;
+    let n = MAX_OBSERVATIONS + 1;
+    let obs = Observations::new(vec![vec![0.5]; n], vec![1.0; n]);
+    assert_eq!(
+        fit(&obs, &FitOptions::default()).err(),
+        Some(GpError::TooMany {
+            n,
+            max: MAX_OBSERVATIONS
+        })
+    );
+}

@@ -99,7 +99,7 @@ pub(crate) fn exp_neg(x: f64) -> f64 {
     p = p * r + 1.0;
     p = p * r + 1.0;
     let k = t.to_bits().wrapping_sub(SHIFT.to_bits()) as i64;
-    let scale = f64::from_bits(((k + 1023) as u64) << 52);
+    let scale = f64::from_bits((k.wrapping_add(1023) as u64) << 52);
     p * scale
 }
 
