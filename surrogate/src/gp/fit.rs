@@ -37,6 +37,8 @@ pub struct FitOptions {
     pub fit_nugget: bool,
     /// With more observations, hyperparameters are optimised on a seeded
     /// random subset of this size; the posterior uses all observations.
+    /// Up to twice this size, the subset optimum is then polished by a few
+    /// L-BFGS iterations on all observations.
     pub max_hyper_points: usize,
 }
 
@@ -64,6 +66,8 @@ pub fn bounds() -> [(f64, f64); 3] {
 /// is -LML / n). Results are clamped into the box afterwards.
 const PENALTY: f64 = 100.0;
 const MAX_ITERS: u64 = 200;
+/// L-BFGS iterations of the polish on all observations after a subset fit.
+const POLISH_ITERS: u64 = 25;
 
 /// The LML and its gradient in theta = (ln s_f^2, ln l_1..ln l_d [, ln nugget]).
 struct Lml {
@@ -248,6 +252,7 @@ fn run_start(
     lo: &[f64],
     hi: &[f64],
     start: Vec<f64>,
+    max_iters: u64,
 ) -> Result<(Vec<f64>, f64), String> {
     let obj = Objective {
         data,
@@ -260,7 +265,7 @@ fn run_start(
         .and_then(|s| s.with_tolerance_cost(1e-12))
         .map_err(|e| e.to_string())?;
     let best = match Executor::new(obj, solver)
-        .configure(|s| s.param(start.clone()).max_iters(MAX_ITERS))
+        .configure(|s| s.param(start.clone()).max_iters(max_iters))
         .run()
     {
         Ok(res) => res.state().best_param.clone().unwrap_or(start),
@@ -356,7 +361,7 @@ pub(super) fn fit(obs: &Observations, opts: &FitOptions) -> Result<Gp, GpError> 
     }
     let results: Vec<Result<(Vec<f64>, f64), String>> = starts
         .into_par_iter()
-        .map(|s| run_start(&data, &lo, &hi, s))
+        .map(|s| run_start(&data, &lo, &hi, s, MAX_ITERS))
         .collect();
     let mut best: Option<(Vec<f64>, f64)> = None;
     let mut last_err = String::new();
@@ -377,6 +382,26 @@ pub(super) fn fit(obs: &Observations, opts: &FitOptions) -> Result<Gp, GpError> 
             last: last_err,
         });
     };
+    // Subset fits of up to twice the subset size are polished on all the
+    // observations, from the subset optimum (a few L-BFGS iterations).
+    let mut theta = theta;
+    if n > cap && n <= 2 * cap {
+        let full = Data {
+            x: &x,
+            ys: &ys,
+            noise: &noise,
+            ..data
+        };
+        let start_lml = full
+            .lml(&theta)
+            .map(|r| r.value)
+            .unwrap_or(f64::NEG_INFINITY);
+        if let Ok((t, v)) = run_start(&full, &lo, &hi, theta.clone(), POLISH_ITERS) {
+            if v > start_lml {
+                theta = t;
+            }
+        }
+    }
     let (sf2, l, nug) = data.unpack(&theta);
     let hyper = Hyper {
         mean: 0.0,

@@ -154,6 +154,41 @@ pub(crate) fn unit_column(
     }
 }
 
+/// [`unit_column`] (optionally times `scale`) as a pulp operation, so that
+/// `pulp::Arch::dispatch` compiles it for the best SIMD level found at run
+/// time (a closure is not inlined into the dispatch and stays SSE2).
+pub(crate) struct UnitColumn<'a> {
+    pub kernel: KernelKind,
+    pub xt: &'a [f64],
+    pub n: usize,
+    pub start: usize,
+    pub zj: &'a [f64],
+    pub out: &'a mut [f64],
+    pub grad: Option<&'a mut [f64]>,
+    pub scale: f64,
+}
+
+impl pulp::WithSimd for UnitColumn<'_> {
+    type Output = ();
+    #[inline(always)]
+    fn with_simd<S: pulp::Simd>(self, _simd: S) {
+        unit_column(
+            self.kernel,
+            self.xt,
+            self.n,
+            self.start,
+            self.zj,
+            self.out,
+            self.grad,
+        );
+        if self.scale != 1.0 {
+            for c in self.out.iter_mut() {
+                *c *= self.scale;
+            }
+        }
+    }
+}
+
 /// Inputs (row-major n x d) divided by the length scales and transposed to
 /// d x n, for [`unit_column`].
 pub(crate) fn scaled_transpose(x: &[f64], d: usize, inv_l: &[f64]) -> Vec<f64> {

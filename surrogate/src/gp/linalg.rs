@@ -5,7 +5,7 @@ use faer::linalg::solvers::Llt;
 use faer::{MatMut, MatRef, Side};
 use rayon::prelude::*;
 
-use super::kernel::{scaled_transpose, unit_column, KernelKind};
+use super::kernel::{scaled_transpose, KernelKind, UnitColumn};
 use super::GpError;
 
 /// Jitter ladder, relative to the mean diagonal: tried in order when the
@@ -63,13 +63,17 @@ pub(crate) fn kernel_lower_unit(
         let zj: Vec<f64> = (0..d).map(|q| xt[q * n + j]).collect();
         kc[j] = 1.0;
         let (_, below) = kc.split_at_mut(j + 1);
-        match gc {
-            Some(gc) => {
-                let (_, gbelow) = gc.split_at_mut(j + 1);
-                arch.dispatch(|| unit_column(kernel, &xt, n, j + 1, &zj, below, Some(gbelow)));
-            }
-            None => arch.dispatch(|| unit_column(kernel, &xt, n, j + 1, &zj, below, None)),
-        }
+        let grad = gc.map(|gc| gc.split_at_mut(j + 1).1);
+        arch.dispatch(UnitColumn {
+            kernel,
+            xt: &xt,
+            n,
+            start: j + 1,
+            zj: &zj,
+            out: below,
+            grad,
+            scale: 1.0,
+        });
     };
     match g {
         Some(g) => k
@@ -104,11 +108,15 @@ pub(crate) fn kernel_cross(
     let arch = pulp::Arch::new();
     k.par_chunks_mut(n).enumerate().for_each(|(j, col)| {
         let zj: Vec<f64> = (0..d).map(|q| z[j * d + q] * inv_l[q]).collect();
-        arch.dispatch(|| {
-            unit_column(kernel, &xt, n, 0, &zj, col, None);
-            for c in col.iter_mut() {
-                *c *= signal_var;
-            }
+        arch.dispatch(UnitColumn {
+            kernel,
+            xt: &xt,
+            n,
+            start: 0,
+            zj: &zj,
+            out: col,
+            grad: None,
+            scale: signal_var,
         });
     });
     k
