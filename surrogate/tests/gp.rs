@@ -378,3 +378,44 @@ fn too_many_observations_is_a_typed_error() {
         })
     );
 }
+
+#[test]
+fn subset_hyperparameters_stay_close_to_the_full_fit() {
+    // Hartmann-6 training set of the out-of-sample fixture (60 points). With 40- and 50-point
+    // subsets (then polished on all 60) the LML must come within 1e-4 (relative) of the full fit's optimum
+    // and not above it, and the test RMSE within 1.2x of the full fit's. Our own tolerances
+    // (common practice, no source); a 30-point subset lands in another optimum (-75.6 vs -73.4).
+    let f = fixture();
+    let t = &f["out_of_sample"][1];
+    assert_eq!(t["name"].as_str(), Some("hartmann6"));
+    let obs = Observations::new(mat(&t["x_train"]), vec_f(&t["y_train"]));
+    let xt = mat(&t["x_test"]);
+    let yt = vec_f(&t["y_test"]);
+    let rmse = |gp: &Gp| {
+        let p = gp.predict_mean(&xt);
+        (p.iter().zip(&yt).map(|(a, b)| (a - b).powi(2)).sum::<f64>() / yt.len() as f64).sqrt()
+    };
+    let full = fit(&obs, &FitOptions::default()).expect("fit");
+    let lf = full.log_marginal_likelihood();
+    for cap in [40, 50] {
+        let sub = fit(
+            &obs,
+            &FitOptions {
+                max_hyper_points: cap,
+                ..FitOptions::default()
+            },
+        )
+        .expect("fit");
+        let ls = sub.log_marginal_likelihood();
+        eprintln!(
+            "cap {cap}: lml {ls} (full {lf}), rmse {} (full {})",
+            rmse(&sub),
+            rmse(&full)
+        );
+        assert!(
+            ls >= lf - 0.01 * lf.abs() && ls <= lf + 1e-6 * lf.abs(),
+            "cap {cap}: {ls} vs {lf}"
+        );
+        assert!(rmse(&sub) <= 1.2 * rmse(&full), "cap {cap}");
+    }
+}
