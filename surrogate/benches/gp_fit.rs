@@ -10,6 +10,7 @@
 
 use std::time::Instant;
 
+use tessera_surrogate::design::{maximin_lhs, phi_p};
 use tessera_surrogate::gp::{fit, FitOptions, Observations};
 
 fn hartmann6(x: &[f64]) -> f64 {
@@ -60,6 +61,21 @@ fn main() {
         .skip(1)
         .filter_map(|a| a.parse().ok())
         .collect();
+    println!("maximin_lhs (seed 1)");
+    println!("| n | d | time (s) | phi_50 |");
+    println!("|---|---|---|---|");
+    for &(n, d) in &[
+        (60usize, 6usize),
+        (200, 6),
+        (500, 10),
+        (1000, 10),
+        (2000, 20),
+    ] {
+        let t = Instant::now();
+        let x = maximin_lhs(n, d, 1);
+        let secs = t.elapsed().as_secs_f64();
+        println!("| {n} | {d} | {secs:.3} | {:.4} |", phi_p(&x, 50.0));
+    }
     let sizes = if args.is_empty() {
         vec![100, 250, 500, 1000, 2000, 5000]
     } else {

@@ -71,49 +71,68 @@ fn random_lhs(n: usize, d: usize, rng: &mut ChaCha8Rng) -> Vec<Vec<f64>> {
 fn anneal(x: &mut [Vec<f64>], d: usize, rng: &mut ChaCha8Rng) {
     let n = x.len();
     let p = DESIGN_P;
-    // Squared distances.
     let mut d2 = vec![0.0; n * n];
-    for i in 0..n {
-        for j in (i + 1)..n {
-            let s = sq_dist(&x[i], &x[j]);
-            d2[i * n + j] = s;
-            d2[j * n + i] = s;
-        }
-    }
-    // Terms are (d_ij / scale)^(-p), with scale the initial minimum distance,
-    // so they start at most 1 and the sum stays well inside f64 range.
-    let dmin0 = d2
-        .iter()
-        .enumerate()
-        .filter(|(idx, _)| idx / n != idx % n)
-        .map(|(_, &v)| v)
-        .fold(f64::INFINITY, f64::min)
-        .sqrt()
-        .max(1e-300);
-    let scale2 = dmin0 * dmin0;
-    let term = |s: f64| (s / scale2).powf(-p / 2.0);
-    let full_sum = |d2: &[f64]| {
-        let mut s = 0.0;
+    let fill = |x: &[Vec<f64>], d2: &mut [f64]| {
         for i in 0..n {
             for j in (i + 1)..n {
-                s += term(d2[i * n + j]);
+                let s = sq_dist(&x[i], &x[j]);
+                d2[i * n + j] = s;
+                d2[j * n + i] = s;
             }
         }
-        s
     };
-    let mut sum = full_sum(&d2);
+    fill(x, &mut d2);
+    // Terms are (d_ij / scale)^(-p), with scale the initial minimum distance,
+    // so they start at most 1 and the sum stays well inside f64 range. For
+    // p = 50 the power is an integer power of the squared distance (powi).
+    let mut dmin2 = f64::INFINITY;
+    for i in 0..n {
+        for j in (i + 1)..n {
+            dmin2 = dmin2.min(d2[i * n + j]);
+        }
+    }
+    let scale2 = dmin2.max(1e-300);
+    let half = p / 2.0;
+    let int_half = (half.fract() == 0.0 && half <= 64.0).then_some(half as i32);
+    let term = |s: f64| {
+        let r = s / scale2;
+        match int_half {
+            Some(h) => r.powi(-h),
+            None => r.powf(-half),
+        }
+    };
+    let mut t = vec![0.0; n * n];
+    let refresh = |d2: &[f64], t: &mut [f64]| {
+        let mut sum = 0.0;
+        for i in 0..n {
+            for j in (i + 1)..n {
+                let v = term(d2[i * n + j]);
+                t[i * n + j] = v;
+                t[j * n + i] = v;
+                sum += v;
+            }
+        }
+        sum
+    };
+    let mut sum = refresh(&d2, &mut t);
     let mut best_sum = sum;
     let mut best_x: Vec<Vec<f64>> = x.to_vec();
 
-    // Budget: enough swaps for the designs tessera uses (tens to hundreds of
-    // points) while keeping n = 2000 near a second; common practice, no source.
-    let iters = (200 * n * d).clamp(20_000, 400_000);
+    // Budget: 100 n d swap proposals within [2e4, 2e5], and at most 5e7 / n
+    // so that the O(n) proposals keep n = 2000 well under a second; common
+    // practice, no source.
+    let iters = (100 * n * d)
+        .clamp(20_000, 200_000)
+        .min(50_000_000 / n)
+        .max(1000);
     let t0: f64 = 0.05; // accept a 5% worsening of phi_p with probability 1/e at the start
     let t1: f64 = 1e-4;
     let cool = (t1 / t0).powf(1.0 / iters as f64);
     let mut temp = t0;
-    let mut new_i1 = vec![0.0; n];
-    let mut new_i2 = vec![0.0; n];
+    let mut new_d1 = vec![0.0; n];
+    let mut new_d2 = vec![0.0; n];
+    let mut new_t1 = vec![0.0; n];
+    let mut new_t2 = vec![0.0; n];
     let mut accepted_since_refresh = 0usize;
     for _ in 0..iters {
         temp *= cool;
@@ -130,13 +149,15 @@ fn anneal(x: &mut [Vec<f64>], d: usize, rng: &mut ChaCha8Rng) {
                 continue;
             }
             let xj = x[j][k];
-            let old1 = d2[i1 * n + j];
-            let old2 = d2[i2 * n + j];
-            let n1 = (old1 - (a - xj) * (a - xj) + (b - xj) * (b - xj)).max(0.0);
-            let n2 = (old2 - (b - xj) * (b - xj) + (a - xj) * (a - xj)).max(0.0);
-            new_i1[j] = n1;
-            new_i2[j] = n2;
-            delta += term(n1) + term(n2) - term(old1) - term(old2);
+            let (da, db) = ((a - xj) * (a - xj), (b - xj) * (b - xj));
+            let n1 = (d2[i1 * n + j] - da + db).max(0.0);
+            let n2 = (d2[i2 * n + j] - db + da).max(0.0);
+            let (u1, u2) = (term(n1), term(n2));
+            new_d1[j] = n1;
+            new_d2[j] = n2;
+            new_t1[j] = u1;
+            new_t2[j] = u2;
+            delta += u1 + u2 - t[i1 * n + j] - t[i2 * n + j];
         }
         // The pair (i1, i2) keeps its distance under the swap.
         let new_sum = (sum + delta).max(f64::MIN_POSITIVE);
@@ -151,23 +172,21 @@ fn anneal(x: &mut [Vec<f64>], d: usize, rng: &mut ChaCha8Rng) {
             if j == i1 || j == i2 {
                 continue;
             }
-            d2[i1 * n + j] = new_i1[j];
-            d2[j * n + i1] = new_i1[j];
-            d2[i2 * n + j] = new_i2[j];
-            d2[j * n + i2] = new_i2[j];
+            d2[i1 * n + j] = new_d1[j];
+            d2[j * n + i1] = new_d1[j];
+            d2[i2 * n + j] = new_d2[j];
+            d2[j * n + i2] = new_d2[j];
+            t[i1 * n + j] = new_t1[j];
+            t[j * n + i1] = new_t1[j];
+            t[i2 * n + j] = new_t2[j];
+            t[j * n + i2] = new_t2[j];
         }
         sum = new_sum;
         accepted_since_refresh += 1;
         // Incremental sums lose accuracy when large terms cancel: refresh.
         if accepted_since_refresh >= n || delta < -0.5 * (sum - delta) {
-            for i in 0..n {
-                for j in (i + 1)..n {
-                    let s = sq_dist(&x[i], &x[j]);
-                    d2[i * n + j] = s;
-                    d2[j * n + i] = s;
-                }
-            }
-            sum = full_sum(&d2);
+            fill(x, &mut d2);
+            sum = refresh(&d2, &mut t);
             accepted_since_refresh = 0;
         }
         if sum < best_sum {
