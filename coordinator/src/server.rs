@@ -12,9 +12,9 @@ use std::sync::Arc;
 use subtle::ConstantTimeEq;
 use tessera_proto::v1::coordinator_server::CoordinatorServer;
 use tokio::net::TcpListener;
-use tokio_stream::wrappers::TcpListenerStream;
 use tokio_util::sync::CancellationToken;
 use tonic::service::interceptor::InterceptedService;
+use tonic::transport::server::TcpIncoming;
 use tonic::transport::{Identity, Server, ServerTlsConfig};
 use tonic::{Request, Status};
 
@@ -147,7 +147,11 @@ pub async fn serve(
         .add_service(health_service)
         .add_service(InterceptedService::new(reflection, check.clone()))
         .add_service(CoordinatorServer::with_interceptor(service, check))
-        .serve_with_incoming_shutdown(TcpListenerStream::new(listener), shutdown)
+        .serve_with_incoming_shutdown(
+            // No Nagle delay: small request/response messages go out at once.
+            TcpIncoming::from(listener).with_nodelay(Some(true)),
+            shutdown,
+        )
         .await;
     stop.cancel();
     let _ = planner.await;

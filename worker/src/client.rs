@@ -489,6 +489,13 @@ pub async fn run(
             Duration::ZERO
         };
         let grace_at = draining.filter(|_| !cancelled_rest);
+        tracing::trace!(
+            running = running.len(),
+            undelivered = undelivered.len(),
+            free,
+            ?wait,
+            "waiting"
+        );
         tokio::select! {
             Some(joined) = runs.join_next(), if !runs.is_empty() => {
                 let mut finished = vec![joined];
