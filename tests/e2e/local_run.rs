@@ -97,3 +97,46 @@ fn an_invalid_sweep_file_is_refused_with_its_line_and_no_database() {
         "no database written for an invalid sweep file"
     );
 }
+
+/// Ctrl-C (SIGINT) stops a local sweep with exit code 130 after storing what
+/// arrived; running the same command again finishes it, each run once.
+#[test]
+fn an_interrupted_local_run_continues_where_it_stopped() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let spec = branin_spec(dir, 12, 1, 300);
+    let db = dir.join("sweep.db");
+    let mut cmd = tessera();
+    cmd.arg("run").arg(&spec).args(["--workers", "2"]);
+    let mut first = Proc::start(cmd, dir, "first-run");
+    wait_for(
+        &db,
+        Duration::from_secs(60),
+        "a few results",
+        &[&first],
+        |st| field(st, "done") >= 2,
+    );
+    let pid = first.child.id().to_string();
+    let _ = std::process::Command::new("kill")
+        .args(["-INT", &pid])
+        .status();
+    let exit = first
+        .wait_exit(Duration::from_secs(30))
+        .expect("stops after Ctrl-C");
+    assert_eq!(exit.code(), Some(130), "{}", first.output());
+    assert!(
+        first.output().contains("again to continue"),
+        "{}",
+        first.output()
+    );
+    let st = status(&db).expect("status");
+    let done_before = field(&st, "done");
+    assert!(done_before >= 2 && done_before < 12, "{st}");
+    let again = tessera().arg("run").arg(&spec).output().expect("rerun");
+    assert!(
+        again.status.success(),
+        "{}",
+        String::from_utf8_lossy(&again.stderr)
+    );
+    assert_each_once_all_ok(&db, 12);
+}
