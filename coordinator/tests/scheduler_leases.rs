@@ -107,7 +107,11 @@ fn an_expired_lease_is_handed_out_again_and_a_late_first_result_is_accepted() {
     let first = ga[0].clone();
     // Renewed in time: still held.
     let lost = s
-        .renew(&a, std::slice::from_ref(&first.lease_id), t0 + Duration::from_secs(8))
+        .renew(
+            &a,
+            std::slice::from_ref(&first.lease_id),
+            t0 + Duration::from_secs(8),
+        )
         .expect("renew");
     assert!(lost.is_empty());
     // Not renewed for longer than the lease: expired, queued at the front.
@@ -119,7 +123,9 @@ fn an_expired_lease_is_handed_out_again_and_a_late_first_result_is_accepted() {
         "expired work goes first"
     );
     // The old holder learns it lost the lease.
-    let lost = s.renew(&a, std::slice::from_ref(&first.lease_id), t1).expect("renew");
+    let lost = s
+        .renew(&a, std::slice::from_ref(&first.lease_id), t1)
+        .expect("renew");
     assert_eq!(lost, vec![first.lease_id.clone()]);
     // Its late result is still accepted if it comes first (the store decides).
     let d = s.decide(vec![ok(first.evaluation_id, &first.lease_id, 1.0)]);
