@@ -419,3 +419,16 @@ fn subset_hyperparameters_stay_close_to_the_full_fit() {
         assert!(rmse(&sub) <= 1.2 * rmse(&full), "cap {cap}");
     }
 }
+
+#[test]
+fn loo_of_constant_outputs_is_finite() {
+    // With no spread in y there is nothing to explain: q2 is defined as 0, never NaN.
+    let obs = Observations::new(vec![vec![0.1], vec![0.5], vec![0.9]], vec![2.0, 2.0, 2.0]);
+    let gp = fit(&obs, &FitOptions::default()).expect("fit");
+    let loo = gp.loo();
+    assert_eq!(loo.q2, 0.0);
+    assert!(loo.rmse.is_finite() && loo.mean.iter().all(|m| (m - 2.0).abs() < 1e-6));
+    assert!(serde_json::to_string(&loo)
+        .expect("json")
+        .contains("\"q2\":0.0"));
+}

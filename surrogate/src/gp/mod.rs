@@ -87,7 +87,8 @@ pub struct Loo {
     pub standardized: Vec<f64>,
     /// Root mean squared LOO error.
     pub rmse: f64,
-    /// 1 - sum (y_i - mean_i)^2 / sum (y_i - ybar)^2.
+    /// 1 - sum (y_i - mean_i)^2 / sum (y_i - ybar)^2; 0 when the outputs do
+    /// not vary (never NaN, so it serialises to JSON).
     pub q2: f64,
     /// Fraction of points with |standardized| <= 1.959964.
     pub coverage95: f64,
@@ -555,7 +556,7 @@ impl Gp {
             sd,
             standardized,
             rmse: (sse / n as f64).sqrt(),
-            q2: if sst > 0.0 { 1.0 - sse / sst } else { f64::NAN },
+            q2: if sst > 0.0 { 1.0 - sse / sst } else { 0.0 },
             coverage95: covered as f64 / n as f64,
         }
     }
