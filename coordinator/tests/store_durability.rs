@@ -319,3 +319,34 @@ fn an_empty_file_becomes_a_new_database() {
     let store = Store::open(&path).expect("open");
     assert!(store.sweep().expect("read").is_none());
 }
+
+/// Two processes opening a new database at the same moment (a coordinator
+/// creating it while `tessera status` reads it) both succeed and the schema
+/// is created once. Requirement (DESIGN.md invariant 1), no outside source.
+#[test]
+fn concurrent_opens_of_a_new_file_both_succeed() {
+    for round in 0..20 {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let path = dir.path().join(format!("race-{round}.db"));
+        let barrier = std::sync::Arc::new(std::sync::Barrier::new(2));
+        let handles: Vec<_> = (0..2)
+            .map(|_| {
+                let p = path.clone();
+                let b = barrier.clone();
+                std::thread::spawn(move || {
+                    b.wait();
+                    Store::open(&p).map(|s| s.schema_version().ok())
+                })
+            })
+            .collect();
+        for h in handles {
+            let opened = h.join().expect("thread");
+            assert!(opened.is_ok(), "round {round}: {:?}", opened.err());
+        }
+        let store = Store::open_existing(&path).expect("reopen");
+        assert_eq!(
+            store.schema_version().expect("version"),
+            tessera_coordinator::store::SCHEMA_VERSION
+        );
+    }
+}

@@ -69,3 +69,34 @@ pub fn host_name() -> String {
         .or_else(|| std::env::var("HOSTNAME").ok())
         .unwrap_or_else(|| "localhost".to_string())
 }
+
+/// A gRPC client for a coordinator at `url`, for the query commands.
+pub async fn query_client(
+    url: &str,
+) -> anyhow::Result<
+    tessera_proto::v1::coordinator_client::CoordinatorClient<tonic::transport::Channel>,
+> {
+    let channel = tonic::transport::Endpoint::from_shared(url.to_string())
+        .with_context(|| {
+            format!("--coordinator {url:?} is not a URL; use for example http://10.0.0.5:7300")
+        })?
+        .connect_timeout(std::time::Duration::from_secs(5))
+        .connect()
+        .await
+        .with_context(|| format!("cannot reach the coordinator at {url}"))?;
+    Ok(tessera_proto::v1::coordinator_client::CoordinatorClient::new(channel))
+}
+
+/// Adds `authorization: Bearer <token>` to a request.
+pub fn with_token<T>(
+    mut req: tonic::Request<T>,
+    token: Option<&str>,
+) -> anyhow::Result<tonic::Request<T>> {
+    if let Some(t) = token {
+        let v = format!("Bearer {t}").parse().map_err(|_| {
+            anyhow::anyhow!("the token contains characters not allowed in a header")
+        })?;
+        req.metadata_mut().insert("authorization", v);
+    }
+    Ok(req)
+}

@@ -170,17 +170,8 @@ async fn from_coordinator(
     points: Vec<BTreeMap<String, f64>>,
 ) -> anyhow::Result<Vec<PointPrediction>> {
     use tessera_proto::v1 as pb;
-    use tessera_proto::v1::coordinator_client::CoordinatorClient;
-    let channel = tonic::transport::Endpoint::from_shared(url.to_string())
-        .with_context(|| {
-            format!("--coordinator {url:?} is not a URL; use for example http://10.0.0.5:7300")
-        })?
-        .connect_timeout(std::time::Duration::from_secs(5))
-        .connect()
-        .await
-        .with_context(|| format!("cannot reach the coordinator at {url}"))?;
-    let mut client = CoordinatorClient::new(channel);
-    let mut req = tonic::Request::new(pb::PredictRequest {
+    let mut client = super::net::query_client(url).await?;
+    let req = tonic::Request::new(pb::PredictRequest {
         points: points
             .into_iter()
             .map(|p| pb::PointValues {
@@ -188,12 +179,7 @@ async fn from_coordinator(
             })
             .collect(),
     });
-    if let Some(t) = token {
-        let v = format!("Bearer {t}").parse().map_err(|_| {
-            anyhow::anyhow!("the token contains characters not allowed in a header")
-        })?;
-        req.metadata_mut().insert("authorization", v);
-    }
+    let req = super::net::with_token(req, token.as_deref())?;
     let reply = client
         .predict(req)
         .await

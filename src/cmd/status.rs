@@ -52,23 +52,11 @@ pub fn from_db(db: &std::path::Path) -> anyhow::Result<(SweepStatus, Spec)> {
 }
 
 async fn from_coordinator(url: &str, token: Option<String>) -> anyhow::Result<SweepStatus> {
-    use tessera_proto::v1::coordinator_client::CoordinatorClient;
-    let channel = tonic::transport::Endpoint::from_shared(url.to_string())
-        .with_context(|| {
-            format!("--coordinator {url:?} is not a URL; use for example http://10.0.0.5:7300")
-        })?
-        .connect_timeout(std::time::Duration::from_secs(5))
-        .connect()
-        .await
-        .with_context(|| format!("cannot reach the coordinator at {url}"))?;
-    let mut client = CoordinatorClient::new(channel);
-    let mut req = tonic::Request::new(tessera_proto::v1::StatusRequest {});
-    if let Some(t) = token {
-        let v = format!("Bearer {t}").parse().map_err(|_| {
-            anyhow::anyhow!("the token contains characters not allowed in a header")
-        })?;
-        req.metadata_mut().insert("authorization", v);
-    }
+    let mut client = net::query_client(url).await?;
+    let req = net::with_token(
+        tonic::Request::new(tessera_proto::v1::StatusRequest {}),
+        token.as_deref(),
+    )?;
     let reply = client
         .status(req)
         .await

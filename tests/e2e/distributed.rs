@@ -351,6 +351,22 @@ fn running_coordinator_answers_predict_like_the_database() {
         |st| st.get("finished").and_then(|v| v.as_bool()) == Some(true),
     );
     let url = format!("http://127.0.0.1:{port}");
+    // The live status knows the workers, too.
+    let live = tessera()
+        .args(["status", "--json", "--coordinator", &url])
+        .output()
+        .expect("status");
+    assert!(
+        live.status.success(),
+        "{}",
+        String::from_utf8_lossy(&live.stderr)
+    );
+    let live: serde_json::Value = serde_json::from_slice(&live.stdout).expect("json");
+    assert_eq!(field(&live, "done"), 12);
+    let workers = live["workers"].as_array().expect("workers");
+    assert_eq!(workers.len(), 1);
+    assert_eq!(workers[0]["name"], "alpha");
+    assert_eq!(workers[0]["completed"], 12);
     let ask = |source: &[&str]| {
         tessera()
             .arg("predict")

@@ -354,7 +354,28 @@ impl Store {
     }
 
     fn open_with(path: &Path, flags: OpenFlags) -> Result<Store, StoreError> {
+        // SQLite answers SQLITE_BUSY at once, without waiting, in a few lock
+        // upgrades (switching a new file to WAL while another connection
+        // reads it); opening is idempotent, so it is simply tried again.
+        let started = std::time::Instant::now();
+        loop {
+            match Self::open_once(path, flags) {
+                Err(StoreError::Sqlite(e))
+                    if e.sqlite_error_code() == Some(rusqlite::ErrorCode::DatabaseBusy)
+                        && started.elapsed() < BUSY_TIMEOUT =>
+                {
+                    std::thread::sleep(std::time::Duration::from_millis(20));
+                }
+                other => return other,
+            }
+        }
+    }
+
+    fn open_once(path: &Path, flags: OpenFlags) -> Result<Store, StoreError> {
         let conn = Connection::open_with_flags(path, flags)?;
+        // Before anything touches the file: another process (a coordinator
+        // creating the database, a `status` reading it) may hold a lock.
+        conn.busy_timeout(BUSY_TIMEOUT)?;
         let mut store = Store {
             conn,
             path: path.to_path_buf(),
@@ -365,7 +386,6 @@ impl Store {
             },
             other => other,
         })?;
-        store.conn.busy_timeout(BUSY_TIMEOUT)?;
         let mode: String =
             store
                 .conn
@@ -384,15 +404,13 @@ impl Store {
 
     /// Refuses files that are not tessera databases, or are from a newer schema.
     fn check_identity(&mut self) -> Result<(), StoreError> {
-        let app: i32 = self
-            .conn
-            .pragma_query_value(None, "application_id", |r| r.get(0))?;
-        let version: i64 = self
-            .conn
-            .pragma_query_value(None, "user_version", |r| r.get(0))?;
-        let objects: i64 = self
-            .conn
-            .query_row("SELECT count(*) FROM sqlite_master", [], |r| r.get(0))?;
+        // One read transaction: the three reads see the same state even if
+        // another process is creating the schema right now.
+        let tx = self.conn.transaction()?;
+        let app: i32 = tx.pragma_query_value(None, "application_id", |r| r.get(0))?;
+        let version: i64 = tx.pragma_query_value(None, "user_version", |r| r.get(0))?;
+        let objects: i64 = tx.query_row("SELECT count(*) FROM sqlite_master", [], |r| r.get(0))?;
+        tx.commit()?;
         let fresh = app == 0 && version == 0 && objects == 0;
         if !fresh && app != schema::APPLICATION_ID {
             return Err(StoreError::Foreign {
@@ -430,7 +448,16 @@ impl Store {
             if version >= target {
                 continue;
             }
-            let tx = self.conn.transaction()?;
+            // IMMEDIATE: take the write lock first, then re-read the version,
+            // so two processes opening a new file at once migrate it once.
+            let tx = self
+                .conn
+                .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+            let now: i64 = tx.pragma_query_value(None, "user_version", |r| r.get(0))?;
+            if now >= target {
+                tx.commit()?;
+                continue;
+            }
             tx.execute_batch(sql)?;
             tx.pragma_update(None, "application_id", schema::APPLICATION_ID)?;
             tx.pragma_update(None, "user_version", target)?;
