@@ -49,6 +49,8 @@ enum Command {
     Predict(cmd::predict::PredictArgs),
     /// Check how far each surrogate can be trusted (leave-one-out errors and a verdict).
     CheckFit(cmd::check_fit::CheckFitArgs),
+    /// Plot a metric against a parameter, from the surrogate, with its uncertainty.
+    Trend(cmd::trend::TrendArgs),
     /// Write every evaluation in a sweep database as CSV or JSON lines.
     Export(cmd::export::ExportArgs),
 }
@@ -76,6 +78,7 @@ fn main() -> ExitCode {
         Command::Status(a) => cmd::status::run(a),
         Command::Predict(a) => cmd::predict::run(a),
         Command::CheckFit(a) => cmd::check_fit::run(a),
+        Command::Trend(a) => cmd::trend::run(a),
         Command::Export(a) => cmd::export::run(a),
     };
     match outcome {

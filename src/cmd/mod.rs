@@ -13,6 +13,7 @@ pub mod run;
 pub mod serve;
 pub mod simulate;
 pub mod status;
+pub mod trend;
 pub mod worker;
 
 /// Examples shown at the end of `tessera --help`.
@@ -25,6 +26,8 @@ Examples:
   tessera serve sweep.toml --db sweep.db --listen 0.0.0.0:7300 --token-file lab.token
   tessera worker --coordinator http://HOST:7300 --token-file lab.token
   tessera status --db sweep.db         progress and the best point so far
+  tessera trend --db sweep.db height_sd --metric territory_cv
+                                       a metric against a parameter, as a plot
   tessera export --db sweep.db         every evaluation as CSV";
 
 /// Log output format.

@@ -257,6 +257,14 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
         eprintln!("next:");
         eprintln!("  tessera predict --db {} {first}    predicted metrics with uncertainty", db.display());
         eprintln!("  tessera check-fit --db {}          can the surrogate be trusted?", db.display());
+        if let (Some(p), Some(o)) = (spec.params.first(), spec.objective.as_ref()) {
+            eprintln!(
+                "  tessera trend --db {} {} --metric {}    the trend as a plot",
+                db.display(),
+                p.name,
+                o.metric
+            );
+        }
         eprintln!("  tessera export --db {}             every run as CSV", db.display());
         anyhow::Ok(ExitCode::SUCCESS)
     })?;

@@ -10,3 +10,4 @@ mod external_model;
 mod harness;
 mod local_run;
 mod tls_health;
+mod trend_plot;

@@ -9,6 +9,7 @@
 //! messages.
 
 mod predict;
+mod trend;
 mod verdict;
 pub mod wire;
 
@@ -16,6 +17,7 @@ pub use predict::{
     natural_to_unit, parse_assignment, predict, short as short_number, MetricPrediction,
     PointPrediction, SD_RATIO_WARN, Z95,
 };
+pub use trend::{trend, Observed, Trend, TrendStep};
 pub use verdict::{
     check_fit, FitVerdict, Verdict, MAX_COVERAGE, MIN_COVERAGE, MIN_Q2, POINTS_PER_PARAM,
 };
@@ -104,6 +106,22 @@ pub enum QueryError {
         metric: String,
         /// What is wrong.
         reason: String,
+    },
+    /// A trend asked for a parameter the sweep does not have.
+    #[error("the sweep has no parameter {name:?}; its parameters are {valid}")]
+    NotAParameter {
+        /// The name given.
+        name: String,
+        /// The valid parameters with ranges and units.
+        valid: String,
+    },
+    /// A trend asked for a metric with no surrogate.
+    #[error("no surrogate for metric {metric:?}; fitted metrics: {fitted}")]
+    NoSuchMetric {
+        /// The name given.
+        metric: String,
+        /// The fitted metrics, comma separated.
+        fitted: String,
     },
     /// A bug or an impossible state.
     #[error("internal error: {0}")]

@@ -87,7 +87,9 @@ pub fn status_of(e: QueryError) -> Status {
         | QueryError::MissingParameters { .. }
         | QueryError::BadValue { .. }
         | QueryError::BadAssignment { .. }
-        | QueryError::NoPoints { .. } => Status::invalid_argument(e.to_string()),
+        | QueryError::NoPoints { .. }
+        | QueryError::NotAParameter { .. }
+        | QueryError::NoSuchMetric { .. } => Status::invalid_argument(e.to_string()),
         QueryError::NoFits { .. } | QueryError::NoSweep { .. } => {
             Status::failed_precondition(e.to_string())
         }
