@@ -68,7 +68,7 @@ def design():
                 "min_distance_mean": float(np.mean(mins)),
             }
         cases.append(row)
-    # The six-run design of REFERENCES.md, recomputed here.
+    # The six-run design with ranks [[1,3],[2,6],[3,2],[4,5],[5,1],[6,4]], computed here.
     ranks = np.array([[1, 3], [2, 6], [3, 2], [4, 5], [5, 1], [6, 4]], dtype=float)
     x6 = (ranks - 0.5) / 6.0
     six = {
@@ -208,7 +208,7 @@ def gp():
             "sklearn_hyper": {"signal_var": c, "lengthscales": l, "nugget": w},
         })
 
-    # REFERENCES.md fixture, no output scaling.
+    # Six-point sin(2 pi x) fixture, no output scaling.
     X6 = np.linspace(0, 1, 6)[:, None]
     y6 = np.sin(2 * np.pi * X6[:, 0])
     g6 = GaussianProcessRegressor(sk_kernel("matern52", 1.5, 0.3, 0.01, True), alpha=0.0,

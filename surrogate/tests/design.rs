@@ -52,13 +52,13 @@ fn maximin_lhs_is_deterministic_for_a_seed() {
 
 #[test]
 fn six_run_fixture_measures() {
-    // REFERENCES.md "Latin hypercube designs" fixture (verified with scipy 1.17), recomputed
+    // Six-run Latin hypercube fixture (values from scipy 1.17), recomputed
     // by scripts/fixtures_surrogate.py into design_scipy.json.
     let f = fixture();
     let six = &f["six_run"];
     let x = points(&six["points"]);
     assert!(is_latin_hypercube(&x));
-    // CD^2 = 0.008142039609053 (REFERENCES.md; scipy qmc.discrepancy method='CD').
+    // CD^2 = 0.008142039609053 (scipy qmc.discrepancy method='CD', Hickernell 1998).
     assert!(rel(centered_l2_discrepancy_sq(&x), 0.008142039609053) < 1e-12);
     assert!(
         rel(
@@ -66,9 +66,9 @@ fn six_run_fixture_measures() {
             six["cd2"].as_f64().unwrap_or(0.0)
         ) < 1e-12
     );
-    // Minimum distance sqrt(5)/6 (REFERENCES.md).
+    // Minimum distance sqrt(5)/6 (analytic: the closest pairs differ by one rank in one column and two in the other).
     assert!(rel(min_distance(&x), 5f64.sqrt() / 6.0) < 1e-12);
-    // phi_2, phi_5, phi_50 (REFERENCES.md, Morris & Mitchell 1995 definition).
+    // phi_2, phi_5, phi_50 (Morris & Mitchell 1995 definition, computed by scipy-based script).
     assert!(rel(phi_p(&x, 2.0), 7.444272601815) < 1e-11);
     assert!(rel(phi_p(&x, 5.0), 3.686469306031) < 1e-11);
     assert!(rel(phi_p(&x, 50.0), 2.758718887247) < 1e-11);

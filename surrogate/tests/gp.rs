@@ -1,5 +1,5 @@
 //! Checks of `gp` against scikit-learn (scripts/fixtures_surrogate.py writes
-//! tests/fixtures/gp_sklearn.json; versions inside), REFERENCES.md values and
+//! tests/fixtures/gp_sklearn.json; versions inside), GPML worked values and
 //! analytic identities.
 
 use serde_json::Value;
@@ -85,7 +85,7 @@ fn fixed_hyperparameters_match_sklearn() {
 
 #[test]
 fn references_six_point_fixture() {
-    // REFERENCES.md "Gaussian processes" fixture (GPML eq. 2.30; scikit-learn 1.9), no scaling.
+    // Six-point fixture (GPML eq. 2.30; scikit-learn 1.9), no scaling.
     let x: Vec<Vec<f64>> = (0..6).map(|i| vec![i as f64 / 5.0]).collect();
     let y: Vec<f64> = x
         .iter()

@@ -15,14 +15,14 @@ fn branin(u: &[f64]) -> f64 {
     (x2 - b * x1 * x1 + c * x1 - 6.0).powi(2) + 10.0 * (1.0 - t) * x1.cos() + 10.0
 }
 
-/// Known Branin minimum 5/(4 pi) = 0.397887357729738 (REFERENCES.md, verified).
+/// Known Branin minimum 5/(4 pi) = 0.397887357729738 (Surjanovic & Bingham VLSE; Dixon & Szegő 1978).
 const BRANIN_MIN: f64 = 0.397_887_357_729_738;
 
 #[test]
 fn branin_reaches_the_minimum_with_expected_improvement() {
     // 10 x 2 = 20-point maximin LHS, then one EI proposal per round, refitting each time.
     // Tolerance 0.01 on f (2.5% of the minimum) within 40 further evaluations (23 with this seed): our own
-    // target, not a published count (REFERENCES.md: the paper's counts are from memory).
+    // target, not a published count (the paper's counts are known only from memory, so not used).
     let mut x = maximin_lhs(20, 2, 3);
     let mut y: Vec<f64> = x.iter().map(|p| branin(p)).collect();
     let mut reached = None;

@@ -1,6 +1,6 @@
 //! The published test functions against their published optima and
-//! variances (values and sources: /work/shared/REFERENCES.md, restated beside
-//! each check), plus the `delay_ms` / `noise_sd` inputs.
+//! variances (each value's source is named beside its check), plus the
+//! `delay_ms` / `noise_sd` inputs.
 
 use std::collections::BTreeMap;
 use std::f64::consts::PI;

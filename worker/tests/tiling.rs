@@ -83,11 +83,11 @@ fn random_placement_gives_clark_evans_1_and_regularity_1_9() {
     );
     // Clark & Evans 1954: R = 1 for a Poisson pattern. Standard error of the
     // pooled mean NN distance: 0.26136 / sqrt(20000) / 0.5 = 0.0037, times
-    // 1.1 (small-sample slack, REFERENCES.md); allowed: 5 such errors.
+    // 1.1 (small-sample slack, common practice, no source); allowed: 5 such errors.
     assert!((ce - 1.0).abs() < 5.0 * 1.1 * 0.0037, "clark_evans {ce}");
     // Regularity index of a Poisson pattern sqrt(pi/(4-pi)) = 1.91306
     // (derived from the Rayleigh NN distribution; Cook 1996 "about 1.9", from
-    // memory). Per-run sd at N = 1000 is 0.057 (REFERENCES.md Monte Carlo), so
+    // memory). Per-run sd at N = 1000 is 0.057 (by Monte Carlo), so
     // about 0.036 at N = 2500 and 0.013 for a mean of 8; allowed 4 of those
     // plus 10% slack.
     let expected = poisson_regularity_index();
