@@ -307,14 +307,28 @@ fn sigterm_hands_work_back_and_both_exit_cleanly() {
     ]);
     let mut coord = Proc::start(cmd, dir, "coordinator");
     let mut w = worker(dir, port, "slow", 2, &["--grace", "1s"]);
-    wait_for(
-        &db,
-        Duration::from_secs(30),
-        "two running",
-        &[&coord, &w],
-        |_| w.output().contains("joined"),
-    );
-    std::thread::sleep(Duration::from_millis(700));
+    // Wait until the coordinator itself reports both slots busy.
+    let url = format!("http://127.0.0.1:{port}");
+    let start = std::time::Instant::now();
+    loop {
+        let out = tessera()
+            .args(["status", "--json", "--coordinator", &url])
+            .output()
+            .expect("status");
+        if out.status.success() {
+            let st: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+            if field(&st, "running") == 2 {
+                break;
+            }
+        }
+        assert!(
+            start.elapsed() < Duration::from_secs(30),
+            "the worker never ran two evaluations: {}\n{}",
+            w.output(),
+            coord.output()
+        );
+        std::thread::sleep(Duration::from_millis(100));
+    }
     w.term();
     let exit = w
         .wait_exit(Duration::from_secs(20))

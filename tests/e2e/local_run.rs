@@ -104,7 +104,8 @@ fn an_invalid_sweep_file_is_refused_with_its_line_and_no_database() {
 fn an_interrupted_local_run_continues_where_it_stopped() {
     let tmp = tempfile::tempdir().expect("temp dir");
     let dir = tmp.path();
-    let spec = branin_spec(dir, 12, 1, 300);
+    // 12 runs of 1 s on 2 workers: about 6 s, ample time to interrupt.
+    let spec = branin_spec(dir, 12, 1, 1000);
     let db = dir.join("sweep.db");
     let mut cmd = tessera();
     cmd.arg("run").arg(&spec).args(["--workers", "2"]);
