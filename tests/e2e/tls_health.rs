@@ -178,8 +178,10 @@ fn a_sweep_runs_over_tls_and_a_worker_without_the_ca_is_refused() {
     );
 }
 
+/// The standard health service answers without a token; server reflection
+/// (which describes the whole API) needs the token like every other call.
 #[test]
-fn the_health_service_reports_serving() {
+fn the_health_service_reports_serving_and_reflection_lists_the_api() {
     use tonic_health::pb::health_client::HealthClient;
     use tonic_health::pb::{health_check_response::ServingStatus, HealthCheckRequest};
     let tmp = tempfile::tempdir().expect("temp dir");
