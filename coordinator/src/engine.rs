@@ -23,10 +23,10 @@ use tokio_util::sync::CancellationToken;
 #[derive(Debug, thiserror::Error)]
 pub enum OpenError {
     /// The sweep file is invalid.
-    #[error("{0}")]
+    #[error(transparent)]
     Spec(#[from] spec::SpecErrors),
     /// The database could not be opened or written.
-    #[error("{0}")]
+    #[error(transparent)]
     Store(#[from] StoreError),
     /// The database holds a different sweep.
     #[error(

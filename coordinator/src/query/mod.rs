@@ -31,7 +31,7 @@ use std::path::Path;
 #[derive(Debug, thiserror::Error)]
 pub enum QueryError {
     /// The database could not be read or written.
-    #[error("{0}")]
+    #[error(transparent)]
     Store(#[from] StoreError),
     /// The database holds no sweep.
     #[error("{db} holds no sweep yet; start one with tessera run or tessera serve")]

@@ -77,9 +77,16 @@ pub enum StoreError {
     /// A row that cannot be read back (edited by hand, or damaged).
     #[error("damaged row in the sweep database: {0}")]
     Damaged(String),
-    /// Any other SQLite error.
+    /// Any other SQLite error. Its text is part of the message (not a
+    /// separate `source`), so error chains do not print it twice.
     #[error("sweep database error: {0}")]
-    Sqlite(#[from] rusqlite::Error),
+    Sqlite(rusqlite::Error),
+}
+
+impl From<rusqlite::Error> for StoreError {
+    fn from(e: rusqlite::Error) -> Self {
+        StoreError::Sqlite(e)
+    }
 }
 
 /// The one sweep stored in a database.
