@@ -259,7 +259,17 @@ impl Coordinator for CoordinatorService {
             .map_err(status_of)?;
         let leases: Vec<pb::Lease> = grants.into_iter().map(|g| self.lease(g)).collect();
         if !leases.is_empty() {
-            tracing::debug!(worker = %r.worker_id, count = leases.len(), "leased");
+            for l in &leases {
+                tracing::debug!(
+                    worker = %r.worker_id,
+                    evaluation = l.evaluation_id,
+                    point = l.point_id,
+                    replicate = l.replicate,
+                    attempt = l.attempt,
+                    lease = %l.lease_id,
+                    "leased"
+                );
+            }
         }
         Ok(Response::new(pb::WorkReply {
             retry_after_ms: if leases.is_empty() { 250 } else { 0 },
@@ -299,7 +309,9 @@ impl Coordinator for CoordinatorService {
             .report(&r.worker_id, &name, reports)
             .await
             .map_err(status_of)?;
-        tracing::debug!(worker = %r.worker_id, count = acked.len(), "results durable");
+        for e in &acked {
+            tracing::debug!(worker = %r.worker_id, evaluation = e, "result durable");
+        }
         Ok(Response::new(pb::ReportReply {
             acknowledged: acked.into_iter().map(|e| e as u64).collect(),
         }))

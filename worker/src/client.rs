@@ -424,6 +424,14 @@ pub async fn run(
                                 cancel: cancel.clone(),
                             },
                         );
+                        tracing::debug!(
+                            evaluation = lease.evaluation_id,
+                            point = lease.point_id,
+                            replicate = lease.replicate,
+                            attempt = lease.attempt,
+                            model = %lease.model,
+                            "run started"
+                        );
                         let runner = runner.clone();
                         runs.spawn(async move {
                             let started = unix_ms();
@@ -507,7 +515,12 @@ pub async fn run(
                         Ok((lease_id, item)) => {
                             running.remove(&lease_id);
                             if discard.remove(&lease_id) {
+                                tracing::debug!(evaluation = item.evaluation_id, "run stopped (lease lost or handed back)");
                                 continue;
+                            }
+                            match &item.failure {
+                                None => tracing::debug!(evaluation = item.evaluation_id, ms = item.ended_unix_ms.saturating_sub(item.started_unix_ms), "run finished"),
+                                Some((kind, reason, _)) => tracing::warn!(evaluation = item.evaluation_id, kind = %kind, reason = %reason, "run failed"),
                             }
                             undelivered.push(item);
                         }
