@@ -125,7 +125,12 @@ impl Engine {
         let db_name = opts.db.display().to_string();
         let (sweep, spec_text, spec) = match store.sweep()? {
             Some(sw) => {
-                if sw.spec_text != opts.spec_text {
+                // Edits that change nothing (comments, spacing, key order)
+                // are not a different sweep.
+                let same = sw.spec_text == opts.spec_text
+                    || spec::parse(&sw.spec_text, &sw.spec_file)
+                        .is_ok_and(|stored| stored == given);
+                if !same {
                     if !opts.force {
                         return Err(OpenError::DifferentSpec {
                             db: db_name,

@@ -47,6 +47,21 @@ fn a_different_sweep_file_for_the_same_database_is_refused() {
         String::from_utf8_lossy(&first.stderr)
     );
     let text = std::fs::read_to_string(&spec).expect("spec");
+    // A comment is not a different sweep.
+    let commented = dir.join("commented.toml");
+    std::fs::write(&commented, format!("# lab notebook p. 12\n{text}")).expect("write");
+    let same = tessera()
+        .arg("run")
+        .arg(&commented)
+        .arg("--db")
+        .arg(&db)
+        .output()
+        .expect("run");
+    assert!(
+        same.status.success(),
+        "{}",
+        String::from_utf8_lossy(&same.stderr)
+    );
     let other = dir.join("other.toml");
     std::fs::write(&other, text.replace("budget = 4", "budget = 9")).expect("write");
     let out = tessera()
