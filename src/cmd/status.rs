@@ -88,6 +88,9 @@ pub fn print_human(st: &SweepStatus, spec: Option<&Spec>) {
         st.evaluations_total,
         if st.finished { " (finished)" } else { "" }
     );
+    if st.workers.is_empty() && !st.finished && st.done + st.failed > 0 {
+        println!("           (read from the file: runs under way count as queued; --coordinator URL shows them and the workers)");
+    }
     match &st.best {
         Some(b) => {
             println!(
