@@ -3,7 +3,7 @@
 scikit-learn. Writes JSON under surrogate/tests/fixtures/; the tests read the
 committed files (CI has no Python).
 
-Usage: python3 scripts/fixtures_surrogate.py [design|acquisition|gp|all]
+Usage: python3 scripts/fixtures_surrogate.py [design|acquisition|gp|bulk|all]
 
 Each JSON file records the library versions that produced it.
 """
@@ -227,6 +227,43 @@ def gp():
     })
 
 
+def kronecker(n, offset, d=6):
+    """x_ik = frac(0.5 + i a_k), a_k = frac(sqrt(p_k)), i = offset .. offset + n - 1:
+    the same floating-point operations as the Rust tests, so the same bits."""
+    primes = np.array([2.0, 3.0, 5.0, 7.0, 11.0, 13.0])[:d]
+    a = np.sqrt(primes)
+    a = a - np.floor(a)
+    i = np.arange(offset, offset + n, dtype=np.float64)[:, None]
+    v = 0.5 + i * a
+    return v - np.floor(v)
+
+
+def gp_bulk():
+    """Predictions at many points from a larger GP (n = 300, m = 740), where
+    tessera's batched prediction takes its single-precision path: fixed
+    hyperparameters, ConstantKernel * Matern(nu=2.5, ARD), alpha = nugget
+    (so the returned std is the latent f's), normalize_y=True."""
+    from sklearn.gaussian_process import GaussianProcessRegressor
+    from sklearn.gaussian_process.kernels import ConstantKernel, Matern
+
+    n = 300
+    X = kronecker(n, 0)
+    y = hartmann6(X) + 0.05 * np.sin(1.3 * np.arange(n))
+    # 640 new points and the first 100 training points (posterior sd near 0 there).
+    Xs = np.vstack([kronecker(640, 100_000), X[:100]])
+    c, l, w = 1.4, [0.49, 0.62, 1.13, 0.55, 0.50, 0.49], 1e-6
+    k = ConstantKernel(c, constant_value_bounds="fixed") * Matern(l, nu=2.5, length_scale_bounds="fixed")
+    g = GaussianProcessRegressor(k, alpha=w, normalize_y=True, optimizer=None).fit(X, y)
+    mean, sd = g.predict(Xs, return_std=True)
+    write("gp_bulk_sklearn.json", {
+        "versions": versions(),
+        "n": n, "test_offset": 100_000, "test_new": 640, "test_train": 100,
+        "x_sum": float(X.sum()), "x_star_sum": float(Xs.sum()),
+        "signal_var": c, "lengthscales": l, "nugget": w,
+        "y": y.tolist(), "mean": mean.tolist(), "sd": sd.tolist(),
+    })
+
+
 if __name__ == "__main__":
     what = sys.argv[1] if len(sys.argv) > 1 else "all"
     if what in ("design", "all"):
@@ -235,3 +272,5 @@ if __name__ == "__main__":
         acquisition()
     if what in ("gp", "all"):
         gp()
+    if what in ("bulk", "all"):
+        gp_bulk()

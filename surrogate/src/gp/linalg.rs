@@ -175,18 +175,6 @@ pub(crate) fn solve_lower(l: &[f64], n: usize, b: &mut [f64]) {
     lv.solve_lower_triangular_in_place(bv);
 }
 
-/// Solve L X = B in place on the calling thread (for callers that
-/// parallelise over blocks themselves).
-pub(crate) fn solve_lower_seq(l: &[f64], n: usize, b: &mut [f64]) {
-    if n == 0 {
-        return;
-    }
-    let m = b.len() / n;
-    let lv = MatRef::from_column_major_slice(l, n, n);
-    let bv = MatMut::from_column_major_slice_mut(b, n, m);
-    faer::linalg::triangular_solve::solve_lower_triangular_in_place(lv, bv, faer::Par::Seq);
-}
-
 /// Solve L^T X = B in place, B n x m column-major.
 pub(crate) fn solve_upper_t(l: &[f64], n: usize, b: &mut [f64]) {
     if n == 0 {
