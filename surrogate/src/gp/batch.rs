@@ -15,9 +15,9 @@
 //!    ||v||^2 is the measured error e of this batch;
 //! 3. if e exceeds 1e-5 s_f^2, the f32 solve is not accurate enough for this
 //!    factor and the whole batch is recomputed in f64; otherwise every point
-//!    whose f32 variance is below 2000 e is recomputed in f64.
+//!    whose f32 variance is at most 2000 e is recomputed in f64.
 //!
-//! So a variance kept from the f32 pass is at least 2000 times the largest
+//! So a variance kept from the f32 pass is more than 2000 times the largest
 //! error seen in the sample: its relative error is below 1/2000 if the
 //! sample saw the worst case (and, tested, below 1e-3 in sd). Means are
 //! always f64. Small batches use f64 throughout.
@@ -231,7 +231,7 @@ impl Gp {
         }
         let keep = KEEP_FACTOR * error;
         let redo: Vec<usize> = (0..m)
-            .filter(|&i| sf2 - q[i] < keep && sample.binary_search(&i).is_err())
+            .filter(|&i| sf2 - q[i] <= keep && sample.binary_search(&i).is_err())
             .collect();
         if !redo.is_empty() {
             let exact = self.exact_q(z, &redo);
