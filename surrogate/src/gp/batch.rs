@@ -29,9 +29,9 @@ use rayon::prelude::*;
 use super::kernel::{scaled_transpose, UnitColumn};
 use super::{Gp, Prediction};
 
-/// Query points per block: the block's cross-covariances (n x 128) stay in
-/// the L2/L3 caches; measured fastest of 128 to 1024 at n = 1000.
-const BLOCK: usize = 128;
+/// Query points per block (measured at n = 1000 on 2 cores: 256 a little
+/// faster than 64 and 128, and 512 to 1024 slower).
+const BLOCK: usize = 256;
 
 /// Columns of L^-1 per dense product in the f32 pass.
 const PANEL: usize = 128;
@@ -121,14 +121,17 @@ impl Gp {
             Some((_, true)) => Some(self.inverse_factor_f32()),
             _ => None,
         };
+        // In the f32 pass each column is built in f64 one at a time and
+        // stored in f32 only, so a block's working set stays near the L2 size.
+        let f32_pass = w32.is_some();
         let init = || Scratch {
-            k: vec![0.0; n * BLOCK],
-            k32: if w32.is_some() {
+            k: vec![0.0; if f32_pass { n } else { n * BLOCK }],
+            k32: if f32_pass {
                 vec![0.0; n * BLOCK]
             } else {
                 Vec::new()
             },
-            v32: if w32.is_some() {
+            v32: if f32_pass {
                 vec![0.0; n * BLOCK]
             } else {
                 Vec::new()
@@ -137,12 +140,16 @@ impl Gp {
         };
         let run = |s: &mut Scratch, start: usize, mean: &mut [f64], q: Option<&mut [f64]>| {
             let b = mean.len();
-            let k = &mut s.k[..n * b];
-            for (j, (col, mu)) in k.chunks_mut(n).zip(mean.iter_mut()).enumerate() {
-                let row = start + j;
+            for (j, mu) in mean.iter_mut().enumerate() {
+                let col = if f32_pass {
+                    &mut s.k[..n]
+                } else {
+                    &mut s.k[j * n..(j + 1) * n]
+                };
                 if d == 0 {
                     col.fill(sf2);
                 } else {
+                    let row = start + j;
                     for (t, zt) in s.zj.iter_mut().enumerate() {
                         *zt = z[row * d + t] * inv_l[t];
                     }
@@ -158,14 +165,16 @@ impl Gp {
                     });
                 }
                 *mu = dot(col, &self.alpha);
+                if f32_pass {
+                    for (a, &v) in s.k32[j * n..(j + 1) * n].iter_mut().zip(col.iter()) {
+                        *a = v as f32;
+                    }
+                }
             }
             let Some(q) = q else { return };
             match w32 {
                 Some(w32) => {
-                    let k32 = &mut s.k32[..n * b];
-                    for (a, &v) in k32.iter_mut().zip(k.iter()) {
-                        *a = v as f32;
-                    }
+                    let k32 = &s.k32[..n * b];
                     let v32 = &mut s.v32[..n * b];
                     lower_times(w32, n, k32, v32, b);
                     for (qj, col) in q.iter_mut().zip(v32.chunks(n)) {
@@ -173,6 +182,7 @@ impl Gp {
                     }
                 }
                 None => {
+                    let k = &mut s.k[..n * b];
                     let lv = MatRef::from_column_major_slice(&self.chol, n, n);
                     let bv = MatMut::from_column_major_slice_mut(k, n, b);
                     faer::linalg::triangular_solve::solve_lower_triangular_in_place(
