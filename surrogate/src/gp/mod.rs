@@ -137,8 +137,8 @@ pub struct Gp {
     /// (K + D)^-1 (ys - m).
     alpha: Vec<f64>,
     lml: f64,
-    /// `chol` in f32 for bulk variances, built on first use (see `batch`).
-    chol32: batch::Factor32,
+    /// L^-1 (of `chol`) in f32 for bulk variances, built on first use (see `batch`).
+    inv_chol32: batch::InverseFactor32,
 }
 
 /// The serialised form of a [`Gp`].
@@ -326,7 +326,7 @@ impl Gp {
             chol: f.l,
             alpha: Vec::new(),
             lml: 0.0,
-            chol32: batch::Factor32::default(),
+            inv_chol32: batch::InverseFactor32::default(),
         };
         gp.refresh_alpha();
         Ok(gp)
@@ -569,7 +569,7 @@ impl Gp {
         gp.ys.push((y - self.y_mean) / self.y_scale);
         gp.noise.push(0.0);
         gp.chol = l;
-        gp.chol32 = batch::Factor32::default();
+        gp.inv_chol32 = batch::InverseFactor32::default();
         gp.refresh_alpha();
         Ok(gp)
     }
