@@ -32,7 +32,8 @@ use tokio::io::{AsyncRead, AsyncReadExt, AsyncWriteExt};
 use tokio::task::JoinHandle;
 use tokio_util::sync::CancellationToken;
 
-use crate::runner::{format_duration, FailureKind, Metrics, RunFailure, RunRequest};
+use crate::request::{format_duration, RunRequest};
+use tessera_models::outcome::{FailureKind, Metrics, RunFailure};
 
 /// How much of the end of stderr a failure carries.
 pub const STDERR_TAIL_BYTES: usize = 4096;

@@ -9,152 +9,18 @@
 //! is then not reachable from that worker and a warning is logged.
 
 use std::collections::BTreeMap;
-use std::fmt;
 use std::future::Future;
 use std::path::PathBuf;
 use std::pin::Pin;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
-use std::time::Duration;
 
 use tokio_util::sync::CancellationToken;
 
 use crate::external::ExternalCommand;
-use crate::models;
-
-/// Metric name to value, as produced by one run.
-pub type Metrics = BTreeMap<String, f64>;
-
-/// One run of one model at one point, as the coordinator asked for it.
-#[derive(Clone, Debug, PartialEq)]
-pub struct RunRequest {
-    /// Model name: a built-in model or an operator-configured command.
-    pub model: String,
-    /// Swept parameter values, in the units of the sweep file.
-    pub params: BTreeMap<String, f64>,
-    /// Fixed inputs (the same at every point). Numbers are merged into the
-    /// inputs of built-in models; external commands receive all of them.
-    pub fixed: BTreeMap<String, serde_json::Value>,
-    /// Seed of this replicate (derived by the coordinator).
-    pub seed: u64,
-    /// Replicate index at this point, from 0.
-    pub replicate: u32,
-    /// Design point the run belongs to.
-    pub point_id: u64,
-    /// Unique id of this evaluation (point, replicate, attempt).
-    pub evaluation_id: u64,
-    /// Wall-clock limit for the run; `None` waits forever.
-    pub timeout: Option<Duration>,
-    /// Metrics the sweep needs; a run that does not report one of them fails
-    /// with [`FailureKind::MissingMetric`].
-    pub expected_metrics: Vec<String>,
-}
-
-impl RunRequest {
-    /// A request for `model` with no parameters, seed 0 and no timeout;
-    /// convenient for tests and `tessera simulate`.
-    pub fn new(model: impl Into<String>) -> Self {
-        RunRequest {
-            model: model.into(),
-            params: BTreeMap::new(),
-            fixed: BTreeMap::new(),
-            seed: 0,
-            replicate: 0,
-            point_id: 0,
-            evaluation_id: 0,
-            timeout: None,
-            expected_metrics: Vec::new(),
-        }
-    }
-}
-
-/// Why a run produced no usable metrics.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
-pub enum FailureKind {
-    /// The simulator exited with a non-zero code or was killed by a signal.
-    Exit,
-    /// The run took longer than its timeout and was killed.
-    Timeout,
-    /// The run was cancelled (worker shutting down, lease lost) and killed.
-    Cancelled,
-    /// The run finished but reported no metrics object.
-    NoMetrics,
-    /// A metric the sweep expects was not reported.
-    MissingMetric,
-    /// A metric was NaN, infinite or null.
-    NonFinite,
-    /// The inputs were rejected (unknown name, out of range, wrong type).
-    BadInput,
-    /// The simulator could not be started (command not found, not executable).
-    Spawn,
-    /// This worker offers no model of that name.
-    UnknownModel,
-}
-
-impl FailureKind {
-    /// Every kind, in declaration order.
-    pub const ALL: [FailureKind; 9] = [
-        FailureKind::Exit,
-        FailureKind::Timeout,
-        FailureKind::Cancelled,
-        FailureKind::NoMetrics,
-        FailureKind::MissingMetric,
-        FailureKind::NonFinite,
-        FailureKind::BadInput,
-        FailureKind::Spawn,
-        FailureKind::UnknownModel,
-    ];
-
-    /// Stable snake_case name, as stored and sent over the wire.
-    pub fn as_str(&self) -> &'static str {
-        match self {
-            FailureKind::Exit => "exit",
-            FailureKind::Timeout => "timeout",
-            FailureKind::Cancelled => "cancelled",
-            FailureKind::NoMetrics => "no_metrics",
-            FailureKind::MissingMetric => "missing_metric",
-            FailureKind::NonFinite => "non_finite",
-            FailureKind::BadInput => "bad_input",
-            FailureKind::Spawn => "spawn",
-            FailureKind::UnknownModel => "unknown_model",
-        }
-    }
-
-    /// The kind whose [`as_str`](Self::as_str) is `s`.
-    pub fn parse(s: &str) -> Option<FailureKind> {
-        FailureKind::ALL.into_iter().find(|k| k.as_str() == s)
-    }
-}
-
-impl fmt::Display for FailureKind {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(self.as_str())
-    }
-}
-
-/// A failed run: what kind of failure, a sentence saying why, and the last
-/// part of the simulator's stderr (empty for built-in models).
-#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
-#[error("{kind}: {reason}")]
-pub struct RunFailure {
-    /// Failure class.
-    pub kind: FailureKind,
-    /// One or two sentences for a person.
-    pub reason: String,
-    /// At most the last 4 KiB of stderr.
-    pub stderr_tail: String,
-}
-
-impl RunFailure {
-    /// A failure with no stderr.
-    pub fn new(kind: FailureKind, reason: impl Into<String>) -> Self {
-        RunFailure {
-            kind,
-            reason: reason.into(),
-            stderr_tail: String::new(),
-        }
-    }
-}
+use tessera_models as models;
+pub use crate::request::{format_duration, RunRequest};
+pub use tessera_models::outcome::{FailureKind, Metrics, RunFailure};
 
 /// The future a [`Runner`] returns.
 pub type RunFuture<'a> = Pin<Box<dyn Future<Output = Result<Metrics, RunFailure>> + Send + 'a>>;
@@ -374,15 +240,6 @@ fn flatten_join(
     }
 }
 
-/// "2.5 s", "120 ms": for failure messages.
-pub(crate) fn format_duration(d: Duration) -> String {
-    if d < Duration::from_secs(1) {
-        format!("{} ms", d.as_millis())
-    } else {
-        format!("{} s", d.as_secs_f64())
-    }
-}
-
 /// Parses an operator's `NAME=CMDLINE` argument, splitting the command line
 /// into words like a POSIX shell does (quotes and backslashes; no variable
 /// expansion, no pipes: use `sh -c '...'` for those).
@@ -428,15 +285,6 @@ pub fn parse_command_arg(arg: &str) -> Result<(String, Vec<String>), String> {
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn failure_kind_names_round_trip() {
-        for k in FailureKind::ALL {
-            assert_eq!(FailureKind::parse(k.as_str()), Some(k));
-        }
-        assert_eq!(FailureKind::MissingMetric.as_str(), "missing_metric");
-        assert_eq!(FailureKind::parse("nope"), None);
-    }
 
     #[test]
     fn command_arg_splits_like_a_shell() {

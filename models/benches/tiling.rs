@@ -9,7 +9,7 @@
 use std::sync::atomic::AtomicBool;
 use std::time::{Duration, Instant};
 
-use tessera_worker::models::tiling::{simulate, Params};
+use tessera_models::tiling::{simulate, Params};
 
 fn time_runs(p: &Params, reps: u64) -> (Duration, usize, usize, u64) {
     let stop = AtomicBool::new(false);

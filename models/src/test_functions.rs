@@ -20,7 +20,7 @@ use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
 
 use super::{is_stopped, stopped, InputInfo, Inputs, MetricInfo, ModelInfo};
-use crate::runner::{FailureKind, Metrics, RunFailure};
+use crate::outcome::{FailureKind, Metrics, RunFailure};
 
 /// Names of the test functions.
 pub const NAMES: [&str; 5] = [

@@ -1,18 +1,32 @@
-//! Built-in models: the `tiling` tissue model and published test functions.
+//! The built-in models: the `tiling` tissue model and published test
+//! functions, each with its description (inputs with ranges, defaults and
+//! units; metrics with units and bounds).
 //!
-//! Each model describes its inputs (name, range, default, unit) and metrics
-//! in [`ModelInfo`]; [`run_builtin`] validates the inputs against that
-//! description before running, so a wrong name or an out-of-range value is a
+//! The worker runs these models; the coordinator reads only their
+//! descriptions, to check sweep files and to give parameters and metrics
+//! their units. This crate must not do I/O, networking or anything async:
+//! a model is a pure function of its inputs and seed.
+//!
+//! [`run_builtin`] validates the inputs against the description before
+//! running, so a wrong name or an out-of-range value is a
 //! [`FailureKind::BadInput`] that lists the valid names and ranges.
+//!
+//! ```
+//! use std::collections::BTreeMap;
+//! let inputs = BTreeMap::from([("x1".to_string(), std::f64::consts::PI), ("x2".to_string(), 2.275)]);
+//! let m = tessera_models::run_builtin("branin", &inputs, 1).expect("valid inputs");
+//! assert!((m["value"] - 0.397887357729738).abs() < 1e-9);
+//! ```
 
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::sync::atomic::{AtomicBool, Ordering};
 
-use crate::runner::{FailureKind, Metrics, RunFailure};
-
+pub mod outcome;
 pub mod test_functions;
 pub mod tiling;
+
+use crate::outcome::{FailureKind, Metrics, RunFailure};
 
 /// One input of a built-in model.
 #[derive(Clone, Debug, PartialEq)]
