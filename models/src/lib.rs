@@ -73,6 +73,37 @@ pub struct ModelInfo {
     pub inputs: Vec<InputInfo>,
     /// Reported metrics.
     pub metrics: Vec<MetricInfo>,
+    /// Combinations of inputs beyond which the model measures something
+    /// other than it is meant to (each input may be valid on its own).
+    pub limits: Vec<Limit>,
+}
+
+/// Looks up an input's value by name.
+pub type InputLookup<'a> = &'a dyn Fn(&str) -> f64;
+
+/// A documented limit on a combination of inputs: `value(inputs) <= max`.
+#[derive(Clone, Debug)]
+pub struct Limit {
+    /// What is limited, for messages ("packing fraction of the cell bodies").
+    pub what: &'static str,
+    /// The inputs `value` reads (the others do not change it).
+    pub inputs: &'static [&'static str],
+    /// The limited quantity, from a lookup of input values by name.
+    pub value: fn(InputLookup<'_>) -> f64,
+    /// The largest value at which the model still does what it is meant to.
+    pub max: f64,
+    /// What happens beyond it and where it is documented.
+    pub beyond: &'static str,
+}
+
+impl PartialEq for Limit {
+    /// Limits are equal when they say the same (function pointers are not compared).
+    fn eq(&self, other: &Self) -> bool {
+        self.what == other.what
+            && self.inputs == other.inputs
+            && self.max == other.max
+            && self.beyond == other.beyond
+    }
 }
 
 impl ModelInfo {

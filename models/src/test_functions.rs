@@ -94,6 +94,7 @@ pub fn infos() -> Vec<ModelInfo> {
             inputs: with_extras(vec![x("x1", -5.0, 10.0), x("x2", 0.0, 15.0)]),
             // Range from a 3001 x 3001 grid, widened slightly.
             metrics: value_metric(0.397887, 308.2),
+            limits: Vec::new(),
         },
         ModelInfo {
             name: "goldstein_price",
@@ -101,18 +102,21 @@ pub fn infos() -> Vec<ModelInfo> {
             inputs: with_extras(vec![x("x1", -2.0, 2.0), x("x2", -2.0, 2.0)]),
             // Maximum from a 2001 x 2001 grid (at a corner), widened slightly.
             metrics: value_metric(3.0, 1.0157e6),
+            limits: Vec::new(),
         },
         ModelInfo {
             name: "hartmann3",
             description: "Hartmann 3-D function (Dixon & Szegő 1978): minimum -3.86278",
             inputs: with_extras(unit(3)),
             metrics: value_metric(-3.862_78, 0.0),
+            limits: Vec::new(),
         },
         ModelInfo {
             name: "hartmann6",
             description: "Hartmann 6-D function (Dixon & Szegő 1978): minimum -3.32237",
             inputs: with_extras(unit(6)),
             metrics: value_metric(-3.322_37, 0.0),
+            limits: Vec::new(),
         },
         ModelInfo {
             name: "ishigami",
@@ -120,6 +124,7 @@ pub fn infos() -> Vec<ModelInfo> {
             inputs: with_extras(vec![x("x1", -pi, pi), x("x2", -pi, pi), x("x3", -pi, pi)]),
             // -(1 + b pi^4) and 1 + a + b pi^4.
             metrics: value_metric(-(1.0 + 0.1 * pi.powi(4)), 1.0 + 7.0 + 0.1 * pi.powi(4)),
+            limits: Vec::new(),
         },
     ]
 }

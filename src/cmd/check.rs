@@ -37,12 +37,22 @@ pub struct CheckArgs {
     pub design: bool,
 }
 
-/// Runs `tessera check`.
-pub fn run(args: CheckArgs) -> anyhow::Result<ExitCode> {
-    let file = args.spec.display().to_string();
-    let text = std::fs::read_to_string(&args.spec)
-        .with_context(|| format!("cannot read the sweep file {file}"))?;
-    let spec = match spec::parse(&text, &file) {
+/// A sweep file read and validated: its text, the sweep and the warnings.
+pub struct Checked {
+    /// The file's text, as stored in the sweep database.
+    pub text: String,
+    /// The validated sweep.
+    pub spec: Spec,
+    /// Warnings (with their place in the file) and remarks about the model.
+    pub warnings: Vec<String>,
+}
+
+/// Reads and validates a sweep file; on problems prints every one of them
+/// and returns the exit code (1) instead.
+pub fn load(path: &std::path::Path) -> anyhow::Result<Result<Checked, ExitCode>> {
+    let file = path.display().to_string();
+    let text = spec::read_file(path)?;
+    let (spec, spec_warnings) = match spec::parse_with_warnings(&text, &file) {
         Ok(s) => s,
         Err(errors) => {
             eprintln!("{errors}");
@@ -51,11 +61,26 @@ pub fn run(args: CheckArgs) -> anyhow::Result<ExitCode> {
                 "{file}: {n} problem{} found; nothing was run",
                 if n == 1 { "" } else { "s" }
             );
-            return Ok(ExitCode::from(1));
+            return Ok(Err(ExitCode::from(1)));
         }
     };
+    let mut warnings: Vec<String> = spec_warnings.iter().map(ToString::to_string).collect();
+    warnings.extend(model_warnings(&spec));
+    Ok(Ok(Checked {
+        text,
+        spec,
+        warnings,
+    }))
+}
+
+/// Runs `tessera check`.
+pub fn run(args: CheckArgs) -> anyhow::Result<ExitCode> {
+    let file = args.spec.display().to_string();
+    let Checked { spec, warnings, .. } = match load(&args.spec)? {
+        Ok(c) => c,
+        Err(code) => return Ok(code),
+    };
     let summary = summary(&spec, &file);
-    let warnings = model_warnings(&spec);
     if args.design {
         eprint!("{summary}");
         for w in &warnings {
@@ -251,99 +276,17 @@ fn bracket(unit: &str) -> String {
     }
 }
 
-/// Mismatches between the sweep file and a built-in model's declared inputs and metrics.
+/// What `check` says about the model beyond the sweep file's own rules: a
+/// model that is neither built in nor given a command.
 pub fn model_warnings(spec: &Spec) -> Vec<String> {
-    let Some(model) = models::find(&spec.model.name) else {
-        let mut w = Vec::new();
-        if spec.model.command.is_none() {
-            let names: Vec<&str> = models::catalogue().iter().map(|m| m.name).collect();
-            w.push(format!(
-                "model {:?} is not built in ({}); workers must be started with a command for it",
-                spec.model.name,
-                names.join(", ")
-            ));
-        }
-        return w;
-    };
-    let inputs: Vec<&str> = model.inputs.iter().map(|i| i.name).collect();
-    let mut w = Vec::new();
-    for p in &spec.params {
-        match model.input(&p.name) {
-            None => w.push(format!(
-                "parameter {} is not an input of model {}; its inputs: {}",
-                p.name,
-                model.name,
-                inputs.join(", ")
-            )),
-            Some(i) => {
-                if p.lo < i.lo || p.hi > i.hi {
-                    w.push(format!(
-                        "parameter {} ranges over [{}, {}] but model {} accepts {} in [{}, {}]{}; runs outside will fail",
-                        p.name,
-                        p.lo,
-                        p.hi,
-                        model.name,
-                        i.name,
-                        i.lo,
-                        i.hi,
-                        unit_suffix(i.unit)
-                    ));
-                }
-                if i.integer && !p.integer {
-                    w.push(format!(
-                        "model {} takes whole numbers for {}; add integer = true to [params.{}]",
-                        model.name, i.name, p.name
-                    ));
-                }
-                if !i.unit.is_empty() && !p.unit.is_empty() && i.unit != p.unit {
-                    w.push(format!(
-                        "parameter {} has unit {:?} but model {} measures {} in {:?}",
-                        p.name, p.unit, model.name, i.name, i.unit
-                    ));
-                }
-            }
-        }
+    if models::find(&spec.model.name).is_some() || spec.model.command.is_some() {
+        return Vec::new();
     }
-    for (name, value) in &spec.model.fixed {
-        match model.input(name) {
-            None => w.push(format!(
-                "fixed input {name} is not an input of model {}; its inputs: {}",
-                model.name,
-                inputs.join(", ")
-            )),
-            Some(i) => match value.as_f64() {
-                Some(x) if x < i.lo || x > i.hi => w.push(format!(
-                    "fixed input {name} = {x} is outside [{}, {}]{} accepted by model {}",
-                    i.lo,
-                    i.hi,
-                    unit_suffix(i.unit),
-                    model.name
-                )),
-                Some(_) => {}
-                None => w.push(format!(
-                    "fixed input {name} should be a number for model {}",
-                    model.name
-                )),
-            },
-        }
-    }
-    let metrics: Vec<&str> = model.metrics.iter().map(|m| m.name).collect();
-    for m in spec.metrics_needed() {
-        if model.metric(&m).is_none() {
-            w.push(format!(
-                "model {} reports no metric {m}; it reports: {}",
-                model.name,
-                metrics.join(", ")
-            ));
-        }
-    }
-    w
-}
-
-fn unit_suffix(unit: &str) -> String {
-    if unit.is_empty() {
-        String::new()
-    } else {
-        format!(" {unit}")
-    }
+    let names: Vec<&str> = models::catalogue().iter().map(|m| m.name).collect();
+    vec![format!(
+        "model {:?} is not built in ({}); workers must be started with --command {}=\"...\" for it",
+        spec.model.name,
+        names.join(", "),
+        spec.model.name
+    )]
 }

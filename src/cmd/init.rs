@@ -68,8 +68,10 @@ pub fn run(args: InitArgs) -> anyhow::Result<ExitCode> {
 /// The swept inputs of the tiling starter, with the ranges to sweep.
 const TILING_SWEPT: &[(&str, f64, f64, &str)] = &[
     ("height_sd", 0.0, 15.0, "linear"),
-    ("exclusion", 0.0, 20.0, "linear"),
-    ("density", 10.0, 60.0, "log"),
+    // Density and exclusion together stay below the model's crowding limit
+    // (packing fraction 40 pi 10^2 / 4e4 = 0.31 at the far corner).
+    ("exclusion", 0.0, 10.0, "linear"),
+    ("density", 10.0, 40.0, "log"),
 ];
 
 /// TOML for a number: whole numbers keep a `.0` so they read as decimals.

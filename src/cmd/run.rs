@@ -102,8 +102,15 @@ fn short(x: f64) -> String {
 
 /// Runs `tessera run`.
 pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
-    let spec_text = std::fs::read_to_string(&args.spec)
-        .with_context(|| format!("cannot read the sweep file {}", args.spec.display()))?;
+    let spec_text = match super::check::load(&args.spec)? {
+        Ok(c) => {
+            for w in &c.warnings {
+                eprintln!("warning: {w}");
+            }
+            c.text
+        }
+        Err(code) => return Ok(code),
+    };
     let db = args.db.clone().unwrap_or_else(|| default_db(&args.spec));
     let engine = Engine::open(OpenOptions {
         db: db.clone(),

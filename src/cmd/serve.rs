@@ -85,8 +85,15 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
             "warning: --insecure: any machine that can reach {addr} can take work and send results"
         );
     }
-    let spec_text = std::fs::read_to_string(&args.spec)
-        .with_context(|| format!("cannot read the sweep file {}", args.spec.display()))?;
+    let spec_text = match super::check::load(&args.spec)? {
+        Ok(c) => {
+            for w in &c.warnings {
+                eprintln!("warning: {w}");
+            }
+            c.text
+        }
+        Err(code) => return Ok(code),
+    };
     let lease: Duration = args.lease.into();
     if lease < Duration::from_secs(1) {
         bail!(

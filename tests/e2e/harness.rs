@@ -3,12 +3,37 @@
 use std::io::Read;
 use std::net::TcpListener;
 use std::path::{Path, PathBuf};
-use std::process::{Child, Command, ExitStatus, Stdio};
+use std::process::{Child, Command, ExitStatus, Output, Stdio};
 use std::time::{Duration, Instant};
 
 /// The `tessera` binary built for these tests.
 pub fn tessera() -> Command {
     Command::new(env!("CARGO_BIN_EXE_tessera"))
+}
+
+/// Runs `tessera ARGS` in `dir` to completion and returns what it printed.
+pub fn run_in(dir: &Path, args: &[&str]) -> Output {
+    tessera()
+        .args(args)
+        .current_dir(dir)
+        .output()
+        .expect("start tessera")
+}
+
+/// Captured output as text.
+pub fn text(bytes: &[u8]) -> String {
+    String::from_utf8_lossy(bytes).into_owned()
+}
+
+/// Asserts that a command succeeded, showing everything it printed if not.
+pub fn ok(out: &Output, what: &str) {
+    assert!(
+        out.status.success(),
+        "{what} failed ({}):\nstdout:\n{}\nstderr:\n{}",
+        out.status,
+        text(&out.stdout),
+        text(&out.stderr)
+    );
 }
 
 /// A free loopback port (bound, read, released).

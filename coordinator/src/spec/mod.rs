@@ -10,8 +10,10 @@
 //! scales, integers), and turns a run's metrics into the single number the
 //! planner minimises ([`Spec::loss`]).
 
+mod builtin;
 mod error;
 mod reader;
+mod toml_access;
 mod unit_cube;
 
 use std::collections::BTreeMap;
@@ -153,9 +155,75 @@ pub struct Target {
 
 /// Parses and validates a sweep file. `file` is only used in error messages.
 ///
-/// Returns every problem found, not only the first.
+/// Returns every problem found, not only the first. For a built-in model
+/// (no `command`), parameters, fixed inputs and metrics are checked against
+/// the model's description and units it leaves out are filled in from it.
 pub fn parse(text: &str, file: &str) -> Result<Spec, SpecErrors> {
+    reader::read(text, file).map(|(spec, _)| spec)
+}
+
+/// As [`parse`], also returning the warnings: problems that do not stop a
+/// sweep (a box crossing a built-in model's documented limit, a unit that
+/// differs from the model's), in file order.
+pub fn parse_with_warnings(text: &str, file: &str) -> Result<(Spec, Vec<SpecError>), SpecErrors> {
     reader::read(text, file)
+}
+
+/// Largest sweep file accepted (16 MiB): a sweep file is a page of text;
+/// anything larger is a mistake (or `/dev/zero`).
+pub const MAX_FILE_BYTES: u64 = 16 << 20;
+
+/// Why a sweep file could not be read.
+#[derive(Debug, thiserror::Error)]
+pub enum ReadError {
+    /// The file could not be opened or read.
+    #[error("cannot read the sweep file {path}: {source}")]
+    Io {
+        /// The path given.
+        path: String,
+        /// What went wrong.
+        source: std::io::Error,
+    },
+    /// The file is larger than [`MAX_FILE_BYTES`].
+    #[error("{path} is larger than 16 MiB; a sweep file is a short text file (is this the right file?)")]
+    TooLarge {
+        /// The path given.
+        path: String,
+    },
+    /// The file is not UTF-8 text.
+    #[error("{path} is not a text file (not valid UTF-8 at byte {at}); a sweep file is TOML text")]
+    NotText {
+        /// The path given.
+        path: String,
+        /// Offset of the first invalid byte.
+        at: usize,
+    },
+}
+
+/// Reads a sweep file, refusing anything larger than [`MAX_FILE_BYTES`]
+/// without reading more than that (so `/dev/zero` ends at once).
+pub fn read_file(path: &std::path::Path) -> Result<String, ReadError> {
+    use std::io::Read;
+    let name = path.display().to_string();
+    let io = |source| ReadError::Io {
+        path: name.clone(),
+        source,
+    };
+    if path.is_dir() {
+        return Err(io(std::io::Error::other("it is a directory")));
+    }
+    let file = std::fs::File::open(path).map_err(io)?;
+    let mut bytes = Vec::new();
+    file.take(MAX_FILE_BYTES + 1)
+        .read_to_end(&mut bytes)
+        .map_err(io)?;
+    if bytes.len() as u64 > MAX_FILE_BYTES {
+        return Err(ReadError::TooLarge { path: name });
+    }
+    String::from_utf8(bytes).map_err(|e| ReadError::NotText {
+        path: name,
+        at: e.utf8_error().valid_up_to(),
+    })
 }
 
 impl Spec {

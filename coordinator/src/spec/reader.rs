@@ -1,4 +1,7 @@
-//! Reading and validating the sweep file.
+//! The sweep-file rules: which keys exist, what each may hold, and how they
+//! depend on each other. The typed access to the TOML document underneath
+//! is [`super::toml_access`]; the extra rules for built-in models are
+//! [`super::builtin`].
 //!
 //! The file is parsed with the `toml` crate into its spanned document tree
 //! (`toml::de::DeTable`), which keeps the byte range of every key and value.
@@ -13,12 +16,13 @@ use toml::de::{DeTable, DeValue};
 use toml::Spanned;
 
 use super::error::LineIndex;
+use super::toml_access::{
+    closest, join, num, table_start, type_name, Reader, Value,
+};
 use super::{
     Direction, ModelSpec, Objective, ParamSpec, Scale, Spec, SpecError, SpecErrors, Strategy,
     Target,
 };
-
-type Value<'i> = Spanned<DeValue<'i>>;
 
 const TOP_KEYS: &[&str] = &[
     "name",
@@ -52,11 +56,16 @@ const INITIAL_PER_PARAM: u32 = 10;
 /// Largest accepted `replicates` and `retries` (a guard against typos).
 const MAX_REPEATS: i64 = 10_000;
 
-pub(super) fn read(text: &str, file: &str) -> Result<Spec, SpecErrors> {
+/// Most points a sweep may have: the surrogates hold at most this many
+/// (`tessera_surrogate::gp::MAX_OBSERVATIONS`).
+pub(super) const MAX_BUDGET: u32 = tessera_surrogate::gp::MAX_OBSERVATIONS as u32;
+
+pub(super) fn read(text: &str, file: &str) -> Result<(Spec, Vec<SpecError>), SpecErrors> {
     let mut r = Reader {
         file,
         lines: LineIndex::new(text),
         errors: Vec::new(),
+        warnings: Vec::new(),
     };
     let (root, syntax) = DeTable::parse_recoverable(text);
     if !syntax.is_empty() {
@@ -78,9 +87,16 @@ pub(super) fn read(text: &str, file: &str) -> Result<Spec, SpecErrors> {
         }
         return Err(r.finish());
     }
-    let spec = r.spec(root.get_ref());
+    let mut spec = r.spec(root.get_ref());
+    if let Some(s) = spec.as_mut() {
+        if s.model.command.is_none() {
+            if let Some(model) = tessera_models::find(&s.model.name) {
+                super::builtin::apply(&mut r, root.get_ref(), s, &model);
+            }
+        }
+    }
     match spec {
-        Some(spec) if r.errors.is_empty() => Ok(spec),
+        Some(spec) if r.errors.is_empty() => Ok((spec, r.take_warnings())),
         _ => {
             if r.errors.is_empty() {
                 // Every path that gives up reports why; this is a safety net.
@@ -95,22 +111,6 @@ pub(super) fn read(text: &str, file: &str) -> Result<Spec, SpecErrors> {
     }
 }
 
-/// Collects errors while walking the document.
-struct Reader<'a> {
-    file: &'a str,
-    lines: LineIndex<'a>,
-    /// (byte offset, error): sorted by offset at the end.
-    errors: Vec<(usize, SpecError)>,
-}
-
-fn join(path: &str, key: &str) -> String {
-    if path.is_empty() {
-        key.to_string()
-    } else {
-        format!("{path}.{key}")
-    }
-}
-
 /// A name usable as a CSV column and model input: a letter or `_`, then letters, digits or `_`.
 fn valid_name(name: &str) -> bool {
     let mut chars = name.chars();
@@ -121,248 +121,7 @@ fn valid_name(name: &str) -> bool {
 const NAME_RULE: &str =
     "names start with a letter or `_` and hold only letters, digits and `_` (e.g. height_mean)";
 
-fn type_name(v: &DeValue<'_>) -> &'static str {
-    match v {
-        DeValue::String(_) => "a string",
-        DeValue::Integer(_) => "a whole number",
-        DeValue::Float(_) => "a decimal number",
-        DeValue::Boolean(_) => "true/false",
-        DeValue::Datetime(_) => "a date",
-        DeValue::Array(_) => "a list",
-        DeValue::Table(_) => "a table",
-    }
-}
-
-/// The closest known key, if it is close enough to be a likely misspelling.
-fn closest<'k>(word: &str, known: &[&'k str]) -> Option<&'k str> {
-    let lower = word.to_ascii_lowercase();
-    known
-        .iter()
-        .map(|k| (strsim::damerau_levenshtein(&lower, k), *k))
-        .filter(|(d, k)| {
-            *d <= (k.len() / 3).max(1) || lower.starts_with(*k) || k.starts_with(&*lower)
-        })
-        .min_by_key(|(d, _)| *d)
-        .map(|(_, k)| k)
-}
-
-/// Formats a number for messages without a trailing `.0` on whole numbers.
-fn num(x: f64) -> String {
-    format!("{x}")
-}
-
-fn parse_integer(v: &DeValue<'_>) -> Option<Option<i64>> {
-    match v {
-        DeValue::Integer(i) => {
-            let digits: String = i.as_str().chars().filter(|c| *c != '_').collect();
-            Some(i64::from_str_radix(&digits, i.radix()).ok())
-        }
-        _ => None,
-    }
-}
-
-fn parse_float(v: &DeValue<'_>) -> Option<f64> {
-    match v {
-        DeValue::Float(f) => {
-            let s: String = f.as_str().chars().filter(|c| *c != '_').collect();
-            let neg = s.starts_with('-');
-            if s.ends_with("nan") {
-                Some(f64::NAN)
-            } else if s.ends_with("inf") {
-                Some(if neg {
-                    f64::NEG_INFINITY
-                } else {
-                    f64::INFINITY
-                })
-            } else {
-                s.parse().ok()
-            }
-        }
-        DeValue::Integer(_) => parse_integer(v).flatten().map(|i| i as f64),
-        _ => None,
-    }
-}
-
-/// Position of a table in the file: its own span if the parser gave it one,
-/// else the key that names it.
-fn table_start(value: &Value<'_>, key_start: usize) -> usize {
-    let s = value.span();
-    if s.start < s.end {
-        s.start
-    } else {
-        key_start
-    }
-}
-
-impl<'a> Reader<'a> {
-    fn error(&mut self, at: usize, key: &str, message: impl Into<String>) {
-        let (line, column) = self.lines.line_col(at);
-        self.errors.push((
-            at,
-            SpecError {
-                file: self.file.to_string(),
-                line,
-                column,
-                key: key.to_string(),
-                message: message.into(),
-            },
-        ));
-    }
-
-    fn finish(&mut self) -> SpecErrors {
-        let mut errors = std::mem::take(&mut self.errors);
-        errors.sort_by_key(|(at, _)| *at);
-        SpecErrors(errors.into_iter().map(|(_, e)| e).collect())
-    }
-
-    fn line_of(&self, at: usize) -> usize {
-        self.lines.line_col(at).0
-    }
-
-    /// Reports every key of `table` that is not in `known`, with a suggestion.
-    fn check_keys(&mut self, table: &DeTable<'_>, path: &str, known: &[&str]) {
-        for (k, _) in table.iter() {
-            let name: &str = k.get_ref();
-            if known.contains(&name) {
-                continue;
-            }
-            let hint = match closest(name, known) {
-                Some(c) => format!("did you mean `{c}`? "),
-                None => String::new(),
-            };
-            let message = format!(
-                "unknown key `{name}`; {hint}valid keys here: {}",
-                known.join(", ")
-            );
-            self.error(k.span().start, &join(path, name), message);
-        }
-    }
-
-    fn lookup<'t, 'i>(
-        table: &'t DeTable<'i>,
-        key: &str,
-    ) -> Option<(&'t Spanned<std::borrow::Cow<'i, str>>, &'t Value<'i>)> {
-        table.get_key_value(key)
-    }
-
-    fn string(&mut self, v: &Value<'_>, key: &str, example: &str) -> Option<String> {
-        match v.get_ref() {
-            DeValue::String(s) => Some(s.to_string()),
-            other => {
-                let found = type_name(other);
-                self.error(
-                    v.span().start,
-                    key,
-                    format!("expected text in quotes, e.g. {key} = {example}; found {found}"),
-                );
-                None
-            }
-        }
-    }
-
-    fn nonempty_string(&mut self, v: &Value<'_>, key: &str, example: &str) -> Option<String> {
-        let s = self.string(v, key, example)?;
-        if s.trim().is_empty() {
-            self.error(
-                v.span().start,
-                key,
-                format!("must not be empty, e.g. {key} = {example}"),
-            );
-            return None;
-        }
-        Some(s)
-    }
-
-    /// A finite number (whole or decimal).
-    fn number(&mut self, v: &Value<'_>, key: &str) -> Option<f64> {
-        match parse_float(v.get_ref()) {
-            Some(x) if x.is_finite() => Some(x),
-            Some(_) => {
-                self.error(
-                    v.span().start,
-                    key,
-                    "must be a finite number (not nan or inf)",
-                );
-                None
-            }
-            None => {
-                let found = type_name(v.get_ref());
-                self.error(
-                    v.span().start,
-                    key,
-                    format!("expected a number, e.g. 0.5 or 20; found {found}"),
-                );
-                None
-            }
-        }
-    }
-
-    /// A whole number in `[min, max]`.
-    fn whole(&mut self, v: &Value<'_>, key: &str, min: i64, max: i64, what: &str) -> Option<i64> {
-        let at = v.span().start;
-        match parse_integer(v.get_ref()) {
-            Some(Some(i)) if (min..=max).contains(&i) => Some(i),
-            Some(_) => {
-                self.error(
-                    at,
-                    key,
-                    format!("must be a whole number from {min} to {max} ({what})"),
-                );
-                None
-            }
-            None => {
-                let found = match v.get_ref() {
-                    DeValue::Float(f) => format!("the decimal number {}", f.as_str()),
-                    other => type_name(other).to_string(),
-                };
-                self.error(
-                    at,
-                    key,
-                    format!(
-                        "expected a whole number without decimal point, e.g. {key} = {min_ex}; found {found} ({what})",
-                        min_ex = min.max(1)
-                    ),
-                );
-                None
-            }
-        }
-    }
-
-    fn boolean(&mut self, v: &Value<'_>, key: &str) -> Option<bool> {
-        match v.get_ref() {
-            DeValue::Boolean(b) => Some(*b),
-            other => {
-                let found = type_name(other);
-                self.error(
-                    v.span().start,
-                    key,
-                    format!("expected true or false (without quotes); found {found}"),
-                );
-                None
-            }
-        }
-    }
-
-    fn table<'t, 'i>(
-        &mut self,
-        v: &'t Value<'i>,
-        key: &str,
-        example: &str,
-    ) -> Option<&'t DeTable<'i>> {
-        match v.get_ref() {
-            DeValue::Table(t) => Some(t),
-            other => {
-                let found = type_name(other);
-                self.error(
-                    v.span().start,
-                    key,
-                    format!("expected a table, written as a header line {example}; found {found}"),
-                );
-                None
-            }
-        }
-    }
-
+impl Reader<'_> {
     fn spec(&mut self, root: &DeTable<'_>) -> Option<Spec> {
         self.check_keys(root, "", TOP_KEYS);
 
@@ -399,8 +158,8 @@ impl<'a> Reader<'a> {
                     v,
                     "budget",
                     1,
-                    u32::MAX as i64,
-                    "points to evaluate in total",
+                    i64::from(MAX_BUDGET),
+                    "points to evaluate in total; the surrogates hold at most this many, so split a larger study into several sweeps",
                 )
                 .map(|b| (b as u32, v.span().start)),
             None => {
@@ -418,8 +177,8 @@ impl<'a> Reader<'a> {
                     v,
                     "initial",
                     1,
-                    u32::MAX as i64,
-                    "points in the initial design",
+                    i64::from(MAX_BUDGET),
+                    "points in the initial design, at most the budget",
                 )
                 .map(|i| Some((i as u32, v.span().start))),
             None => Some(None),
@@ -607,38 +366,6 @@ impl<'a> Reader<'a> {
         })
     }
 
-    fn duration(&mut self, v: &Value<'_>, key: &str) -> Option<Duration> {
-        const FORMS: &str = "valid forms: \"90s\", \"10m\", \"2h\", \"1h 30m\"";
-        let at = v.span().start;
-        let s = match v.get_ref() {
-            DeValue::String(s) => s.to_string(),
-            other => {
-                let found = match other {
-                    DeValue::Integer(i) => format!("the bare number {}", i.as_str()),
-                    DeValue::Float(f) => format!("the bare number {}", f.as_str()),
-                    o => type_name(o).to_string(),
-                };
-                self.error(
-                    at,
-                    key,
-                    format!("expected a duration in quotes with a unit; found {found}; {FORMS}"),
-                );
-                return None;
-            }
-        };
-        match humantime::parse_duration(s.trim()) {
-            Ok(d) if d.is_zero() => {
-                self.error(at, key, format!("must be longer than zero; {FORMS}"));
-                None
-            }
-            Ok(d) => Some(d),
-            Err(e) => {
-                self.error(at, key, format!("\"{s}\" is not a duration ({e}); {FORMS}"));
-                None
-            }
-        }
-    }
-
     fn command(&mut self, v: &Value<'_>) -> Option<Vec<String>> {
         const EX: &str = "e.g. command = [\"python3\", \"sim.py\"]";
         let at = v.span().start;
@@ -700,50 +427,6 @@ impl<'a> Reader<'a> {
             }
         }
         ok.then_some(out)
-    }
-
-    fn json(&mut self, v: &Value<'_>, key: &str) -> Option<serde_json::Value> {
-        use serde_json::Value as J;
-        match v.get_ref() {
-            DeValue::String(s) => Some(J::String(s.to_string())),
-            DeValue::Boolean(b) => Some(J::Bool(*b)),
-            DeValue::Integer(_) => match parse_integer(v.get_ref()).flatten() {
-                Some(i) => Some(J::from(i)),
-                None => {
-                    self.error(v.span().start, key, "whole number too large");
-                    None
-                }
-            },
-            DeValue::Float(_) => {
-                let x = self.number(v, key)?;
-                serde_json::Number::from_f64(x).map(J::Number)
-            }
-            DeValue::Datetime(d) => Some(J::String(d.to_string())),
-            DeValue::Array(items) => {
-                let mut out = Vec::new();
-                let mut ok = true;
-                for (i, item) in items.iter().enumerate() {
-                    match self.json(item, &format!("{key}[{}]", i + 1)) {
-                        Some(j) => out.push(j),
-                        None => ok = false,
-                    }
-                }
-                ok.then_some(J::Array(out))
-            }
-            DeValue::Table(t) => {
-                let mut out = serde_json::Map::new();
-                let mut ok = true;
-                for (k, item) in t.iter() {
-                    match self.json(item, &join(key, k.get_ref())) {
-                        Some(j) => {
-                            out.insert(k.get_ref().to_string(), j);
-                        }
-                        None => ok = false,
-                    }
-                }
-                ok.then_some(J::Object(out))
-            }
-        }
     }
 
     fn params(
@@ -912,6 +595,27 @@ impl<'a> Reader<'a> {
                     num(hi),
                     num(lo)
                 ),
+            );
+            ok = false;
+        } else if !(hi - lo).is_finite() || (hi - lo) < (hi.abs().max(lo.abs())) * 1e-12 {
+            self.error(
+                at,
+                key,
+                format!(
+                    "range [{}, {}] cannot be sampled: its width {} is {}; give bounds whose difference is a finite number well above the rounding of the bounds themselves",
+                    num(lo),
+                    num(hi),
+                    num(hi - lo),
+                    if (hi - lo).is_finite() { "lost in rounding" } else { "too large to represent" }
+                ),
+            );
+            ok = false;
+        }
+        if integer && (lo.abs() > 1e15 || hi.abs() > 1e15) {
+            self.error(
+                at,
+                key,
+                "integer = true needs bounds within +-10^15 (whole numbers beyond that are not exact)",
             );
             ok = false;
         }

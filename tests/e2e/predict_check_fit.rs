@@ -6,25 +6,8 @@
 //! (pi, 2.275), among others.
 
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
 
-fn tessera() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_tessera"))
-}
-
-fn text(b: &[u8]) -> String {
-    String::from_utf8_lossy(b).into_owned()
-}
-
-fn ok(out: &Output, what: &str) {
-    assert!(
-        out.status.success(),
-        "{what} failed ({}):\nstdout:\n{}\nstderr:\n{}",
-        out.status,
-        text(&out.stdout),
-        text(&out.stderr)
-    );
-}
+use super::harness::{ok, tessera, text};
 
 /// Writes the sweep file and runs it to completion; returns the database.
 fn branin_sweep(dir: &Path) -> PathBuf {

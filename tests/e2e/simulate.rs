@@ -2,19 +2,12 @@
 //! failures reported with the simulator's own error output.
 
 use std::path::Path;
-use std::process::{Command, Output};
+use std::process::Output;
+
+use super::harness::{run_in, text};
 
 fn tessera(args: &[&str]) -> Output {
-    let dir = Path::new(env!("CARGO_MANIFEST_DIR"));
-    Command::new(env!("CARGO_BIN_EXE_tessera"))
-        .args(args)
-        .current_dir(dir)
-        .output()
-        .expect("start tessera")
-}
-
-fn text(bytes: &[u8]) -> String {
-    String::from_utf8_lossy(bytes).into_owned()
+    run_in(Path::new(env!("CARGO_MANIFEST_DIR")), args)
 }
 
 #[test]

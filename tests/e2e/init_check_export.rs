@@ -3,21 +3,14 @@
 
 use std::collections::BTreeMap;
 use std::path::Path;
-use std::process::{Command, Output};
+use std::process::Output;
 
+use super::harness::{run_in, text};
 use tessera_coordinator::spec;
 use tessera_coordinator::store::{NewPoint, Outcome, OutcomeResult, PointOrigin, Store};
 
 fn tessera(args: &[&str], dir: &Path) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_tessera"))
-        .args(args)
-        .current_dir(dir)
-        .output()
-        .expect("start tessera")
-}
-
-fn text(bytes: &[u8]) -> String {
-    String::from_utf8_lossy(bytes).into_owned()
+    run_in(dir, args)
 }
 
 #[test]
@@ -146,19 +139,15 @@ integer = true
 minimize = "territory_cv"
 "#;
 
-fn design(dir: &Path, text: &str) -> String {
-    std::fs::write(dir.join("d.toml"), text).expect("write");
+fn design(dir: &Path, spec_text: &str) -> String {
+    std::fs::write(dir.join("d.toml"), spec_text).expect("write");
     let out = tessera(&["check", "d.toml", "--design"], dir);
-    assert!(out.status.success(), "{}", text_of(&out.stderr));
+    assert!(out.status.success(), "{}", text(&out.stderr));
     assert!(
-        text_of(&out.stderr).contains("d.toml: valid"),
+        text(&out.stderr).contains("d.toml: valid"),
         "summary on stderr"
     );
-    text_of(&out.stdout)
-}
-
-fn text_of(b: &[u8]) -> String {
-    text(b)
+    text(&out.stdout)
 }
 
 #[test]
@@ -206,17 +195,30 @@ fn check_design_prints_a_latin_hypercube_and_is_reproducible() {
 }
 
 #[test]
-fn check_warns_about_inputs_the_model_does_not_take() {
+fn check_and_run_refuse_a_misspelled_parameter_of_a_builtin_model() {
     let dir = tempfile::tempdir().expect("tempdir");
     let file = DESIGN_SPEC
         .replace("[params.reach]", "[params.hieght_sd]")
         .replace("range = [5, 12]", "range = [0, 12]");
-    std::fs::write(dir.path().join("w.toml"), file).expect("write");
-    let out = tessera(&["check", "w.toml"], dir.path());
-    assert!(out.status.success(), "warnings do not fail the check");
+    std::fs::write(dir.path().join("w.toml"), &file).expect("write");
+    for cmd in [&["check", "w.toml"][..], &["run", "w.toml"][..]] {
+        let out = tessera(cmd, dir.path());
+        assert_eq!(out.status.code(), Some(1), "{cmd:?} fails");
+        let err = text(&out.stderr);
+        // [params.hieght_sd] is on line 13, its name starts in column 9.
+        assert!(
+            err.contains("w.toml:13:9: params.hieght_sd: model tiling has no input `hieght_sd`; did you mean `height_sd`?"),
+            "{cmd:?}: {err}"
+        );
+    }
+    assert!(!dir.path().join("w.db").exists(), "nothing was run");
+    let file = DESIGN_SPEC.replace("\"territory_cv\"", "\"territory_vc\"");
+    std::fs::write(dir.path().join("m.toml"), &file).expect("write");
+    let out = tessera(&["check", "m.toml"], dir.path());
+    assert_eq!(out.status.code(), Some(1));
     let err = text(&out.stderr);
     assert!(
-        err.contains("warning: parameter hieght_sd is not an input of model tiling"),
+        err.contains("m.toml:17:12: objective.minimize: model tiling reports no metric `territory_vc`; did you mean `territory_cv`?"),
         "{err}"
     );
 }
@@ -300,7 +302,7 @@ fn export_writes_one_row_per_evaluation() {
 
     let out = tessera(&["export", "--db", "s.db", "--units"], dir.path());
     assert!(text(&out.stdout)
-        .starts_with("point,origin,replicate,seed,status,height_mean [um],density,reach,"));
+        .starts_with("point,origin,replicate,seed,status,height_mean [um],density [cells/10^4 um^2],reach [um],"));
 
     let out = tessera(&["export", "--db", "s.db", "--format", "jsonl"], dir.path());
     assert!(out.status.success(), "{}", text(&out.stderr));
