@@ -20,10 +20,23 @@ mod cmd;
 struct Cli {
     /// How much to log on stderr: error, warn, info, debug or trace
     /// [default: info for serve and worker, warn otherwise].
-    #[arg(long, global = true, value_name = "LEVEL")]
+    #[arg(
+        long,
+        global = true,
+        value_name = "LEVEL",
+        help_heading = "Global options",
+        display_order = 1000
+    )]
     log_level: Option<String>,
     /// Log format on stderr: text (for people) or json (for log collectors).
-    #[arg(long, global = true, default_value = "text", value_name = "FORMAT")]
+    #[arg(
+        long,
+        global = true,
+        default_value = "text",
+        value_name = "FORMAT",
+        help_heading = "Global options",
+        display_order = 1001
+    )]
     log_format: cmd::LogFormat,
     #[command(subcommand)]
     command: Command,

@@ -16,6 +16,10 @@ use crate::store::{CommitResult, EvalStatus, EvaluationRecord, PointRecord};
 use std::collections::{BTreeMap, HashMap, HashSet, VecDeque};
 use std::time::{Duration, Instant, SystemTime, UNIX_EPOCH};
 
+/// Failure kinds that are final at once: the run's inputs were rejected, and
+/// the same inputs would be rejected again.
+pub const NOT_RETRIED: &[&str] = &["bad_input"];
+
 /// Milliseconds since the Unix epoch, for records people read.
 pub fn unix_ms() -> u64 {
     SystemTime::now()
@@ -523,7 +527,9 @@ impl Scheduler {
             .into_iter()
             .map(|r| {
                 let failures = self.pending.get(&r.evaluation_id).map_or(0, |p| p.failures);
-                let final_attempt = failures + 1 > self.spec.retries;
+                // Inputs a model rejects stay rejected: retrying cannot help.
+                let hopeless = matches!(&r.outcome, ReportOutcome::Failure { kind, .. } if NOT_RETRIED.contains(&kind.as_str()));
+                let final_attempt = hopeless || failures + 1 > self.spec.retries;
                 Decided {
                     report: r,
                     final_attempt,

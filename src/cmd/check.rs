@@ -12,7 +12,7 @@ use tessera_worker::models;
 /// Arguments of `tessera check`.
 #[derive(clap::Args, Debug)]
 #[command(
-    before_long_help = "Check a sweep file without running anything.\n\n\
+    long_about = "Check a sweep file without running anything.\n\n\
 Every problem is listed at once, each with its line and column and what \
 would be valid; the exit status is 1 if there is any. A valid file is \
 summarised: the model, the run budget, a table of the parameters with their \

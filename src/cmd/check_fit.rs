@@ -8,7 +8,7 @@ use tessera_coordinator::query::{self, FitVerdict};
 /// Arguments of `tessera check-fit`.
 #[derive(clap::Args, Debug)]
 #[command(
-    before_long_help = "Check each surrogate (one per metric) by leaving each point out in turn \
+    long_about = "Check each surrogate (one per metric) by leaving each point out in turn \
 and predicting it from all the others. Shown per metric: the points and runs it \
 was fitted to; the typical error of those predictions (LOO RMSE, in the metric's \
 unit); Q2, the share of the variation between points that is predicted (1 is \

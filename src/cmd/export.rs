@@ -20,7 +20,7 @@ pub enum ExportFormat {
 /// Arguments of `tessera export`.
 #[derive(clap::Args, Debug)]
 #[command(
-    before_long_help = "Write every evaluation stored in a sweep database: one row per run \
+    long_about = "Write every evaluation stored in a sweep database: one row per run \
 (point and replicate), with its seed, its status, the parameter values in \
 natural units, every metric the model reported, and why it failed if it did.\n\n\
 Columns: point, origin, replicate, seed, status, one column per parameter, one \

@@ -9,7 +9,7 @@ use tessera_worker::models::{self, InputInfo, ModelInfo};
 /// Arguments of `tessera init`.
 #[derive(clap::Args, Debug)]
 #[command(
-    before_long_help = "Write a commented starter sweep file, sweep.toml, for one of the built-in models.\n\n\
+    long_about = "Write a commented starter sweep file, sweep.toml, for one of the built-in models.\n\n\
 The file says which model constants to vary and over what range, how many \
 simulation runs to spend, and which readout to optimise. Every line is \
 explained in comments; edit it, then check it with `tessera check sweep.toml`.",

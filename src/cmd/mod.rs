@@ -39,6 +39,13 @@ pub enum LogFormat {
     Json,
 }
 
+/// Whether to colour what goes to stderr: only on a terminal, and never
+/// when `NO_COLOR` is set to anything non-empty (no-color.org).
+pub fn colour_stderr() -> bool {
+    use std::io::IsTerminal;
+    std::io::stderr().is_terminal() && std::env::var_os("NO_COLOR").is_none_or(|v| v.is_empty())
+}
+
 /// Sets up `tracing` to log to stderr at `level` (results go to stdout).
 pub fn init_logging(level: &str, format: LogFormat) -> anyhow::Result<()> {
     let filter = tracing_subscriber::EnvFilter::try_new(level).with_context(|| {
@@ -46,6 +53,7 @@ pub fn init_logging(level: &str, format: LogFormat) -> anyhow::Result<()> {
     })?;
     let builder = tracing_subscriber::fmt()
         .with_env_filter(filter)
+        .with_ansi(colour_stderr())
         .with_writer(std::io::stderr);
     match format {
         LogFormat::Text => builder.init(),

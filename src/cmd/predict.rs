@@ -13,7 +13,7 @@ use tessera_coordinator::spec::Spec;
 /// Arguments of `tessera predict`.
 #[derive(clap::Args, Debug)]
 #[command(
-    before_long_help = "Predict the outcome of the model at parameter values you choose, without \
+    long_about = "Predict the outcome of the model at parameter values you choose, without \
 running it: for every metric, the predicted mean (the average over many replicate runs), \
 its standard deviation (how unsure the surrogate is), the 95% interval mean +- 1.96 sd, \
 and the unit.\n\n\

@@ -100,6 +100,27 @@ fn short(x: f64) -> String {
     s.trim_end_matches('0').trim_end_matches('.').to_string()
 }
 
+/// A path or word as one shell word (quoted only when needed).
+fn quote(word: &str) -> String {
+    shlex::try_quote(word).map_or_else(|_| format!("{word:?}"), |q| q.into_owned())
+}
+
+/// The exact command that continues this sweep.
+fn rerun_command(args: &RunArgs, db: &Path) -> String {
+    let mut cmd = format!(
+        "tessera run {} --db {}",
+        quote(&args.spec.display().to_string()),
+        quote(&db.display().to_string())
+    );
+    if let Some(n) = args.workers {
+        cmd.push_str(&format!(" --workers {n}"));
+    }
+    if args.force {
+        cmd.push_str(" --force");
+    }
+    cmd
+}
+
 /// Runs `tessera run`.
 pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
     let spec_text = match super::check::load(&args.spec)? {
@@ -188,7 +209,11 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
             bar.set_draw_target(ProgressDrawTarget::hidden());
         }
         bar.set_style(
-            ProgressStyle::with_template("{bar:30.cyan/blue} {pos}/{len} evaluations · {msg}")
+            ProgressStyle::with_template(if super::colour_stderr() {
+                "{bar:30.cyan/blue} {pos}/{len} evaluations · {msg}"
+            } else {
+                "{bar:30} {pos}/{len} evaluations · {msg}"
+            })
                 .unwrap_or_else(|_| ProgressStyle::default_bar()),
         );
         eprintln!(
@@ -250,10 +275,25 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
         super::status::print_human(&st, Some(&spec));
         if interrupted || !st.finished {
             eprintln!(
-                "interrupted: run `tessera run {}` again to continue",
-                args.spec.display()
+                "interrupted: run `{}` again to continue",
+                rerun_command(&args, &db)
             );
             return anyhow::Ok(ExitCode::from(130));
+        }
+        if st.done == 0 && st.failed > 0 {
+            let reason = st
+                .failures
+                .first()
+                .map_or("unknown", |(r, _)| r.as_str());
+            eprintln!(
+                "every run failed ({} of {}): there is nothing to learn from. Most common reason: {reason}",
+                st.failed, st.evaluations_total
+            );
+            eprintln!(
+                "see each failure with its reason and the simulator's stderr: tessera export --db {}",
+                quote(&db.display().to_string())
+            );
+            return anyhow::Ok(ExitCode::from(1));
         }
         let first = spec
             .params

@@ -1,6 +1,7 @@
 //! `tessera run`: the all-in-one local mode.
 
 use crate::harness::*;
+use std::path::Path;
 use std::time::Duration;
 
 /// A local sweep runs to completion and a rerun of the same command finds
@@ -114,16 +115,21 @@ fn an_invalid_sweep_file_is_refused_with_its_line_and_no_database() {
 }
 
 /// Ctrl-C (SIGINT) stops a local sweep with exit code 130 after storing what
-/// arrived; running the same command again finishes it, each run once.
+/// arrived and prints the exact command that continues it (with its own
+/// `--db`); running that command finishes the sweep, each run once.
 #[test]
 fn an_interrupted_local_run_continues_where_it_stopped() {
     let tmp = tempfile::tempdir().expect("temp dir");
     let dir = tmp.path();
     // 12 runs of 1 s on 2 workers: about 6 s, ample time to interrupt.
     let spec = branin_spec(dir, 12, 1, 1000);
-    let db = dir.join("sweep.db");
+    let db = dir.join("slow runs.db");
     let mut cmd = tessera();
-    cmd.arg("run").arg(&spec).args(["--workers", "2"]);
+    cmd.arg("run")
+        .arg(&spec)
+        .arg("--db")
+        .arg(&db)
+        .args(["--workers", "2"]);
     let mut first = Proc::start(cmd, dir, "first-run");
     wait_for(
         &db,
@@ -140,19 +146,51 @@ fn an_interrupted_local_run_continues_where_it_stopped() {
         .wait_exit(Duration::from_secs(30))
         .expect("stops after Ctrl-C");
     assert_eq!(exit.code(), Some(130), "{}", first.output());
+    let said = first.output();
+    let command = said
+        .lines()
+        .find_map(|l| l.strip_prefix("interrupted: run `"))
+        .and_then(|l| l.split_once("` again to continue"))
+        .map(|(c, _)| c.to_string())
+        .unwrap_or_else(|| panic!("no continue command in:\n{said}"));
+    let words = shlex::split(&command).expect("a shell command line");
+    assert_eq!(words[0], "tessera");
     assert!(
-        first.output().contains("again to continue"),
-        "{}",
-        first.output()
+        words.iter().any(|w| Path::new(w) == db),
+        "names the database: {command}"
     );
     let st = status(&db).expect("status");
     let done_before = field(&st, "done");
     assert!((2..12).contains(&done_before), "{st}");
-    let again = tessera().arg("run").arg(&spec).output().expect("rerun");
+    let again = tessera().args(&words[1..]).output().expect("rerun");
     assert!(
         again.status.success(),
         "{}",
         String::from_utf8_lossy(&again.stderr)
     );
     assert_each_once_all_ok(&db, 12);
+    assert!(!dir.join("sweep.db").exists(), "no second database");
+}
+
+/// A sweep in which every run fails exits non-zero and says so.
+#[test]
+fn a_sweep_where_every_run_fails_exits_non_zero() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let spec = dir.join("fails.toml");
+    std::fs::write(
+        &spec,
+        "name = \"fails\"\nbudget = 4\ninitial = 4\nretries = 1\n[model]\nname = \"broken\"\ncommand = [\"sh\", \"-c\", \"echo no >&2; exit 3\"]\n[params.x]\nrange = [0.0, 1.0]\n[objective]\nminimize = \"value\"\n",
+    )
+    .expect("write");
+    let out = tessera()
+        .arg("run")
+        .arg(&spec)
+        .args(["--workers", "2"])
+        .output()
+        .expect("run");
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{err}");
+    assert!(err.contains("every run failed (4 of 4)"), "{err}");
+    assert!(err.contains("exited with code 3"), "{err}");
 }
