@@ -7,14 +7,11 @@
 
 use std::sync::Arc;
 use std::time::{Duration, Instant};
+use tessera::cluster::{ClusterOptions, LocalCluster};
 use tessera_coordinator::engine::{Engine, OpenOptions};
 use tessera_coordinator::scheduler::LeaseTimes;
-use tessera_coordinator::server::{self, ServeOptions};
-use tessera_coordinator::service::CoordinatorService;
-use tessera_worker::client::{self, WorkerOptions};
+use tessera_coordinator::server::ServeOptions;
 use tessera_worker::runner::{RunnerConfig, Runners};
-use tessera_worker::spool::Spool;
-use tokio_util::sync::CancellationToken;
 
 fn spec(evaluations: u32) -> String {
     // initial = budget: the whole sweep is the design, so the bench measures
@@ -39,39 +36,25 @@ async fn one(slots: u32, workers: u32, evaluations: u32) -> (f64, Duration) {
         times: LeaseTimes::default(),
     })
     .expect("open");
-    let listener = tokio::net::TcpListener::bind("127.0.0.1:0")
-        .await
-        .expect("bind");
-    let addr = listener.local_addr().expect("addr");
-    let stop = CancellationToken::new();
-    let s2 = stop.clone();
-    let server = tokio::spawn(server::serve(
-        engine.clone(),
-        CoordinatorService::new(engine.clone()),
-        listener,
-        ServeOptions::default(),
-        async move { s2.cancelled().await },
-    ));
-    let runners = Arc::new(Runners::new(RunnerConfig::default()));
+    let runner = Arc::new(Runners::new(RunnerConfig::default()));
     let start = Instant::now();
-    let mut set = tokio::task::JoinSet::new();
-    for i in 0..workers {
-        let opts = WorkerOptions {
-            coordinator: format!("http://{addr}"),
-            name: format!("bench-{i}"),
+    let mut cluster = LocalCluster::start(
+        engine.clone(),
+        ClusterOptions {
+            workers,
+            slots_per_worker: slots / workers,
+            runner,
+            serve: ServeOptions::default(),
+            name: "bench".into(),
             host: "bench".into(),
-            slots: slots / workers,
-            token: None,
-            ca_pem: None,
-            spool: Spool::new(None),
             grace: Duration::from_secs(1),
-            exit_when_finished: true,
-            max_backoff: Duration::from_millis(200),
-        };
-        let r = runners.clone();
-        set.spawn(async move { client::run(opts, r, std::future::pending::<()>()).await });
+        },
+    )
+    .await
+    .expect("start the cluster");
+    while !cluster.workers_done() {
+        let _ = cluster.next_worker_end().await;
     }
-    while set.join_next().await.is_some() {}
     let elapsed = start.elapsed();
     let st = engine.status();
     assert_eq!(
@@ -79,8 +62,7 @@ async fn one(slots: u32, workers: u32, evaluations: u32) -> (f64, Duration) {
         u64::from(evaluations),
         "not every evaluation finished"
     );
-    stop.cancel();
-    let _ = server.await;
+    cluster.stop().await.expect("stop the cluster");
     (f64::from(evaluations) / elapsed.as_secs_f64(), elapsed)
 }
 

@@ -7,7 +7,8 @@ use crate::committer::{CommitError, StoreHandle};
 use crate::fitter::{self, MetricFit};
 use crate::planner;
 use crate::scheduler::{
-    unix_ms, Decided, Grant, JoinInfo, LeaseTimes, Report, ReportOutcome, ScheduleError, Scheduler,
+    unix_ms, Decided, Grant, JoinInfo, LeaseContext, LeaseTimes, Report, ReportOutcome,
+    ScheduleError, Scheduler,
 };
 use crate::spec::{self, Spec};
 use crate::status::SweepStatus;
@@ -88,9 +89,10 @@ pub struct Engine {
     /// Live state. Locked briefly by each request; never held across an await.
     sched: Mutex<Scheduler>,
     store: StoreHandle,
-    fixed_json: String,
-    timeout_ms: u64,
-    expected_metrics: Vec<String>,
+    /// The sweep; it never changes while the engine runs.
+    spec: Arc<Spec>,
+    /// What every lease carries besides its grant.
+    lease_context: LeaseContext,
     /// Wakes the planner task when results arrive or the queue drains.
     plan_wake: Notify,
     /// Set on shutdown: no new leases are handed out.
@@ -186,20 +188,23 @@ impl Engine {
             }
         };
         let nonce = format!("{:x}", unix_ms() ^ (u64::from(std::process::id()) << 40));
-        let fixed_json =
-            serde_json::to_string(&spec.model.fixed).unwrap_or_else(|_| "{}".to_string());
-        let timeout_ms = spec.model.timeout.as_millis() as u64;
-        let expected_metrics = spec.metrics_needed();
+        let lease_context = LeaseContext {
+            model: spec.model.name.clone(),
+            fixed_json: serde_json::to_string(&spec.model.fixed)
+                .unwrap_or_else(|_| "{}".to_string()),
+            timeout_ms: spec.model.timeout.as_millis() as u64,
+            expected_metrics: spec.metrics_needed(),
+        };
         let replicates = spec.replicates.max(1);
         let seed = spec.seed;
-        let sched = Scheduler::new(spec, opts.times, nonce, &points, &evaluations);
+        let spec = Arc::new(spec);
+        let sched = Scheduler::new(spec.clone(), opts.times, nonce, &points, &evaluations);
         let (store, _join) = StoreHandle::spawn(store, sweep.id, replicates, seed)?;
         Ok(Arc::new(Engine {
             sched: Mutex::new(sched),
             store,
-            fixed_json,
-            timeout_ms,
-            expected_metrics,
+            spec,
+            lease_context,
             plan_wake: Notify::new(),
             draining: AtomicBool::new(false),
             db: opts.db,
@@ -210,8 +215,8 @@ impl Engine {
     }
 
     /// The sweep being run.
-    pub fn spec(&self) -> Spec {
-        lock(&self.sched).spec().clone()
+    pub fn spec(&self) -> &Arc<Spec> {
+        &self.spec
     }
 
     /// The sweep file text stored in the database.
@@ -229,19 +234,9 @@ impl Engine {
         lock(&self.sched).times()
     }
 
-    /// Fixed inputs as a JSON object.
-    pub fn fixed_json(&self) -> &str {
-        &self.fixed_json
-    }
-
-    /// Per-run timeout in milliseconds.
-    pub fn timeout_ms(&self) -> u64 {
-        self.timeout_ms
-    }
-
-    /// Metrics every run must report.
-    pub fn expected_metrics(&self) -> &[String] {
-        &self.expected_metrics
+    /// What every lease carries besides its grant.
+    pub fn lease_context(&self) -> &LeaseContext {
+        &self.lease_context
     }
 
     /// The store thread, for queries that must see committed data.
@@ -361,7 +356,7 @@ impl Engine {
                     Some(q) if !self.draining.load(Ordering::SeqCst) => {
                         s.set_planning(true);
                         Some((
-                            s.spec().clone(),
+                            self.spec.clone(),
                             s.point_results(),
                             s.unfinished_points(),
                             q,
@@ -439,9 +434,8 @@ impl Engine {
                 continue;
             }
             seen = done;
-            let spec = self.spec();
             let sweep_id = self.sweep_id;
-            let plan_spec = spec.clone();
+            let plan_spec = self.spec.clone();
             let plan = match self
                 .store
                 .call(move |s| fitter::stale_jobs(s, sweep_id, &plan_spec))

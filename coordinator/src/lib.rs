@@ -10,6 +10,7 @@
 //! I/O), and results become durable through [`committer`] (the only SQLite
 //! writer while serving, with group commit) before they are acknowledged.
 
+pub mod client;
 pub mod committer;
 pub mod engine;
 pub mod fitter;
@@ -22,3 +23,4 @@ pub mod service;
 pub mod spec;
 pub mod status;
 pub mod store;
+pub mod wire;

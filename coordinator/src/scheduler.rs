@@ -65,6 +65,19 @@ pub struct Grant {
     pub attempt: u32,
 }
 
+/// What every lease of a sweep carries besides its grant.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LeaseContext {
+    /// Model name.
+    pub model: String,
+    /// Fixed inputs as a JSON object.
+    pub fixed_json: String,
+    /// Per-run timeout in milliseconds.
+    pub timeout_ms: u64,
+    /// Metrics every run must report.
+    pub expected_metrics: Vec<String>,
+}
+
 /// A worker's `Join`, as the scheduler needs it.
 #[derive(Clone, Debug)]
 pub struct JoinInfo {
@@ -187,7 +200,7 @@ pub struct PointResults {
 /// The live state of one sweep.
 #[derive(Debug)]
 pub struct Scheduler {
-    spec: Spec,
+    spec: std::sync::Arc<Spec>,
     times: LeaseTimes,
     nonce: String,
     counter: u64,
@@ -209,7 +222,7 @@ impl Scheduler {
     /// point order; leases do not survive a restart (workers that still run
     /// such an evaluation re-adopt it when they renew).
     pub fn new(
-        spec: Spec,
+        spec: std::sync::Arc<Spec>,
         times: LeaseTimes,
         nonce: String,
         points: &[PointRecord],

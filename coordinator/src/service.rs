@@ -1,9 +1,10 @@
-//! The gRPC `Coordinator` service over an [`Engine`], and the conversion
-//! between wire types and domain types (the only module that sees both).
+//! The gRPC `Coordinator` service over an [`Engine`]: each call converted
+//! from its wire form ([`crate::wire`]), answered by the engine, and
+//! converted back.
 
 use crate::engine::{Engine, EngineError};
-use crate::scheduler::{lease_evaluation, Grant, JoinInfo, Report, ReportOutcome, ScheduleError};
-use crate::status::SweepStatus;
+use crate::scheduler::{JoinInfo, ScheduleError};
+use crate::wire;
 use std::collections::HashMap;
 use std::sync::{Arc, Mutex};
 use tessera_proto::v1 as pb;
@@ -11,17 +12,13 @@ use tessera_proto::v1::coordinator_server::Coordinator;
 use tessera_proto::PROTOCOL_VERSION;
 use tonic::{Request, Response, Status};
 
-/// Answers `Predict` requests; set by the query layer when a surrogate is available.
-pub type PredictFn =
-    Arc<dyn Fn(pb::PredictRequest) -> Result<pb::PredictReply, Status> + Send + Sync>;
-
 /// The gRPC service.
 #[derive(Clone)]
 pub struct CoordinatorService {
     engine: Arc<Engine>,
     /// Worker id to operator-given name, for the `worker` column of results.
+    /// Locked briefly per call, never across an await.
     names: Arc<Mutex<HashMap<String, String>>>,
-    predict: Option<PredictFn>,
 }
 
 impl std::fmt::Debug for CoordinatorService {
@@ -36,14 +33,7 @@ impl CoordinatorService {
         CoordinatorService {
             engine,
             names: Arc::new(Mutex::new(HashMap::new())),
-            predict: None,
         }
-    }
-
-    /// Answers `Predict` with `f`.
-    pub fn with_predict(mut self, f: PredictFn) -> Self {
-        self.predict = Some(f);
-        self
     }
 
     fn name_of(&self, worker_id: &str) -> String {
@@ -53,22 +43,6 @@ impl CoordinatorService {
             .get(worker_id)
             .cloned()
             .unwrap_or_else(|| worker_id.to_string())
-    }
-
-    fn lease(&self, g: Grant) -> pb::Lease {
-        pb::Lease {
-            lease_id: g.lease_id,
-            evaluation_id: g.evaluation_id as u64,
-            point_id: g.point_id as u64,
-            replicate: g.replicate,
-            seed: g.seed,
-            model: self.engine.spec().model.name.clone(),
-            params: g.params.into_iter().collect(),
-            fixed_json: self.engine.fixed_json().to_string(),
-            timeout_ms: self.engine.timeout_ms(),
-            expected_metrics: self.engine.expected_metrics().to_vec(),
-            attempt: g.attempt,
-        }
     }
 }
 
@@ -84,125 +58,6 @@ fn status_of(e: EngineError) -> Status {
             Status::invalid_argument(e.to_string())
         }
         EngineError::Commit(e) => Status::unavailable(format!("results not stored: {e}")),
-    }
-}
-
-/// Converts a wire result to a domain report; `None` for a result without an outcome.
-fn report_of(r: pb::RunResult) -> Result<Report, Status> {
-    let evaluation_id = i64::try_from(r.evaluation_id)
-        .map_err(|_| Status::invalid_argument("evaluation_id out of range"))?;
-    if lease_evaluation(&r.lease_id).is_some_and(|e| e != evaluation_id) {
-        return Err(Status::invalid_argument(format!(
-            "lease {} does not belong to evaluation {evaluation_id}",
-            r.lease_id
-        )));
-    }
-    let outcome = match r.outcome {
-        Some(pb::run_result::Outcome::Metrics(m)) => {
-            ReportOutcome::Metrics(m.values.into_iter().collect())
-        }
-        Some(pb::run_result::Outcome::Failure(f)) => ReportOutcome::Failure {
-            kind: f.kind,
-            reason: f.reason,
-            stderr_tail: f.stderr_tail,
-        },
-        None => {
-            return Err(Status::invalid_argument(format!(
-                "result for evaluation {evaluation_id} has neither metrics nor a failure"
-            )))
-        }
-    };
-    Ok(Report {
-        evaluation_id,
-        lease_id: r.lease_id,
-        outcome,
-        started_unix_ms: r.started_unix_ms,
-        ended_unix_ms: r.ended_unix_ms,
-    })
-}
-
-/// Converts a status snapshot to its wire form.
-pub fn status_reply(s: SweepStatus) -> pb::StatusReply {
-    pb::StatusReply {
-        sweep: s.sweep,
-        done: s.done,
-        failed: s.failed,
-        running: s.running,
-        queued: s.queued,
-        budget: s.budget,
-        points: s.points,
-        replicates: s.replicates,
-        workers: s
-            .workers
-            .into_iter()
-            .map(|w| pb::WorkerStatus {
-                worker_id: w.worker_id,
-                name: w.name,
-                host: w.host,
-                slots: w.slots,
-                running: w.running,
-                last_contact_unix_ms: w.last_contact_unix_ms,
-                completed: w.completed,
-                runs_per_minute: w.runs_per_minute,
-                connected: w.connected,
-            })
-            .collect(),
-        failures: s
-            .failures
-            .into_iter()
-            .map(|(reason, count)| pb::FailureGroup { reason, count })
-            .collect(),
-        best: s.best.map(|b| pb::BestPoint {
-            params: b.params.into_iter().collect(),
-            objective: b.objective,
-            point_id: b.point_id as u64,
-        }),
-        finished: s.finished,
-        evaluations_total: s.evaluations_total,
-        objective_label: s.objective_label,
-    }
-}
-
-/// Converts a wire status back to the domain snapshot (for `tessera status --coordinator`).
-pub fn status_from_reply(r: pb::StatusReply) -> SweepStatus {
-    SweepStatus {
-        sweep: r.sweep,
-        done: r.done,
-        failed: r.failed,
-        running: r.running,
-        queued: r.queued,
-        budget: r.budget,
-        points: r.points,
-        replicates: r.replicates,
-        evaluations_total: r.evaluations_total,
-        workers: r
-            .workers
-            .into_iter()
-            .map(|w| crate::status::WorkerStatus {
-                worker_id: w.worker_id,
-                name: w.name,
-                host: w.host,
-                slots: w.slots,
-                running: w.running,
-                last_contact_unix_ms: w.last_contact_unix_ms,
-                completed: w.completed,
-                runs_per_minute: w.runs_per_minute,
-                connected: w.connected,
-            })
-            .collect(),
-        failures: r
-            .failures
-            .into_iter()
-            .map(|f| (f.reason, f.count))
-            .collect(),
-        best: r.best.map(|b| crate::status::BestPoint {
-            point_id: b.point_id as i64,
-            params: b.params.into_iter().collect(),
-            objective: b.objective,
-            replicates: 0,
-        }),
-        finished: r.finished,
-        objective_label: r.objective_label,
     }
 }
 
@@ -241,7 +96,7 @@ impl Coordinator for CoordinatorService {
         Ok(Response::new(pb::JoinReply {
             protocol: PROTOCOL_VERSION,
             worker_id: id,
-            sweep: self.engine.spec().name,
+            sweep: self.engine.spec().name.clone(),
             lease_ms: times.lease.as_millis() as u64,
             renew_every_ms: times.renew_every.as_millis() as u64,
             version: env!("CARGO_PKG_VERSION").to_string(),
@@ -257,7 +112,8 @@ impl Coordinator for CoordinatorService {
             .engine
             .request_work(&r.worker_id, r.free_slots)
             .map_err(status_of)?;
-        let leases: Vec<pb::Lease> = grants.into_iter().map(|g| self.lease(g)).collect();
+        let ctx = self.engine.lease_context();
+        let leases: Vec<pb::Lease> = grants.into_iter().map(|g| wire::lease(g, ctx)).collect();
         if !leases.is_empty() {
             for l in &leases {
                 tracing::debug!(
@@ -301,9 +157,13 @@ impl Coordinator for CoordinatorService {
         let reports = r
             .results
             .into_iter()
-            .map(report_of)
+            .map(wire::report_of)
             .collect::<Result<Vec<_>, _>>()?;
-        let name = self.name_of(&r.worker_id);
+        let name = if r.worker_name.is_empty() {
+            self.name_of(&r.worker_id)
+        } else {
+            r.worker_name.clone()
+        };
         let acked = self
             .engine
             .report(&r.worker_id, &name, reports)
@@ -346,7 +206,7 @@ impl Coordinator for CoordinatorService {
         &self,
         _req: Request<pb::StatusRequest>,
     ) -> Result<Response<pb::StatusReply>, Status> {
-        Ok(Response::new(status_reply(self.engine.status())))
+        Ok(Response::new(wire::status_reply(self.engine.status())))
     }
 
     async fn predict(
@@ -354,17 +214,14 @@ impl Coordinator for CoordinatorService {
         req: Request<pb::PredictRequest>,
     ) -> Result<Response<pb::PredictReply>, Status> {
         let req = req.into_inner();
-        if let Some(f) = &self.predict {
-            return f(req).map(Response::new);
-        }
         let fits = self.engine.fits();
         if fits.is_empty() {
             return Err(Status::failed_precondition(
                 "no surrogate yet: it is fitted once results arrive (every few seconds); try again shortly",
             ));
         }
-        crate::query::wire::answer(&fits, &self.engine.spec(), &req)
+        wire::answer(&fits, self.engine.spec(), &req)
             .map(Response::new)
-            .map_err(crate::query::wire::status_of)
+            .map_err(wire::query_status)
     }
 }

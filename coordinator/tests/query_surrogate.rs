@@ -14,6 +14,7 @@ use tessera_coordinator::fitter::{self, MetricFit};
 use tessera_coordinator::query::{self, QueryError, Verdict};
 use tessera_coordinator::spec::{self, Spec};
 use tessera_coordinator::store::{NewPoint, Outcome, OutcomeResult, PointOrigin, Store};
+use tessera_coordinator::wire;
 use tessera_proto::v1 as pb;
 
 /// Branin (Surjanovic & Bingham), global minimum 5 / (4 pi) = 0.397887.
@@ -416,51 +417,40 @@ fn check_fit_verdicts_follow_the_leave_one_out_errors() {
     );
 }
 
-// The gRPC handler gives the same numbers as the library call.
+// The wire conversion of the Predict call gives the same numbers as the library call.
 #[test]
-fn predict_handler_answers_from_the_stored_fits() {
+fn predict_answer_through_the_wire_types_equals_the_library_call() {
     let mut s = sweep(1);
     add_results(&mut s, &design(20, 3), &mut branin_only);
     let fits = fitter::refit_if_stale(&mut s.store, s.id, &s.spec).expect("fit");
     let local = query::predict(&fits, &s.spec, &[at(3.0, 2.5)]).expect("predict");
 
-    let handler = query::predict_fn(s.db.clone());
-    let req = pb::PredictRequest {
-        points: vec![pb::PointValues {
-            values: [("x1".to_string(), 3.0), ("x2".to_string(), 2.5)]
-                .into_iter()
-                .collect(),
-        }],
-    };
-    let reply = handler(req.clone()).expect("answer");
-    assert_eq!(reply, query::predict_reply(local.clone()));
-    assert_eq!(query::wire::predictions_from_reply(reply), local);
-    // A second call uses the cached fits and gives the same answer.
-    assert_eq!(handler(req).expect("answer"), query::predict_reply(local));
+    let req = wire::predict_request(vec![at(3.0, 2.5)]);
+    let reply = wire::answer(&fits, &s.spec, &req).expect("answer");
+    assert_eq!(reply, wire::predict_reply(local.clone()));
+    assert_eq!(wire::predictions_from_reply(reply), local);
 
-    let bad = pb::PredictRequest {
-        points: vec![pb::PointValues {
-            values: [("x9".to_string(), 1.0)].into_iter().collect(),
-        }],
-    };
-    let e = handler(bad).expect_err("unknown parameter");
+    let bad = wire::predict_request(vec![[("x9".to_string(), 1.0)].into_iter().collect()]);
+    let e = wire::answer(&fits, &s.spec, &bad)
+        .map_err(wire::query_status)
+        .expect_err("unknown parameter");
     assert_eq!(e.code(), tonic::Code::InvalidArgument);
     assert!(e.message().contains("x1 in [-5, 10] mm"), "{}", e.message());
-
-    let empty = sweep(1);
-    let e = query::predict_fn(empty.db.clone())(pb::PredictRequest { points: vec![] })
-        .expect_err("no fits yet");
-    assert_eq!(e.code(), tonic::Code::FailedPrecondition);
+    let e = wire::answer(&fits, &s.spec, &pb::PredictRequest { points: vec![] })
+        .map_err(wire::query_status)
+        .expect_err("no points");
+    assert_eq!(e.code(), tonic::Code::InvalidArgument);
 }
 
-// The same handler behind a real gRPC server on loopback: what a client of
-// the running coordinator receives equals the library's answer.
+// A running coordinator answers Predict from its own fits: what a client
+// receives through `QueryClient` equals the library's answer.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn predict_over_grpc_on_a_running_coordinator() {
+    use tessera_coordinator::client::QueryClient;
     use tessera_coordinator::engine::{Engine, OpenOptions};
     use tessera_coordinator::server::{self, ServeOptions};
     use tessera_coordinator::service::CoordinatorService;
-    use tessera_proto::v1::coordinator_client::CoordinatorClient;
+    use tessera_proto::channel::Dial;
 
     let mut s = sweep(1);
     add_results(&mut s, &design(20, 3), &mut branin_only);
@@ -479,7 +469,7 @@ async fn predict_over_grpc_on_a_running_coordinator() {
         times: Default::default(),
     })
     .expect("open engine");
-    let service = CoordinatorService::new(engine.clone()).with_predict(query::predict_fn(db));
+    let service = CoordinatorService::new(engine.clone());
     let listener = tokio::net::TcpListener::bind("127.0.0.1:0")
         .await
         .expect("bind");
@@ -494,33 +484,15 @@ async fn predict_over_grpc_on_a_running_coordinator() {
         async move { server_stop.cancelled().await },
     ));
 
-    let mut client = None;
-    for _ in 0..50 {
-        match CoordinatorClient::connect(format!("http://{addr}")).await {
-            Ok(c) => {
-                client = Some(c);
-                break;
-            }
-            Err(_) => tokio::time::sleep(std::time::Duration::from_millis(50)).await,
-        }
-    }
-    let mut client = client.expect("connect to the coordinator");
-    let req = pb::PredictRequest {
-        points: [(3.0, 2.5), (50.0, 1.0)]
-            .iter()
-            .map(|&(a, b)| pb::PointValues {
-                values: [("x1".to_string(), a), ("x2".to_string(), b)]
-                    .into_iter()
-                    .collect(),
-            })
-            .collect(),
-    };
-    let reply = client
-        .predict(req)
+    let mut client = QueryClient::new(&Dial {
+        url: format!("http://{addr}"),
+        ..Dial::default()
+    })
+    .expect("a valid address");
+    let remote = client
+        .predict(vec![at(3.0, 2.5), at(50.0, 1.0)])
         .await
-        .expect("predict over gRPC")
-        .into_inner();
-    let remote = query::wire::predictions_from_reply(reply);
+        .expect("predict over gRPC");
     assert_eq!(remote, local);
     assert!(remote[1]
         .warnings

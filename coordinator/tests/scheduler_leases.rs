@@ -63,7 +63,13 @@ fn scheduler() -> Scheduler {
         lease: Duration::from_secs(10),
         renew_every: Duration::from_secs(3),
     };
-    Scheduler::new(spec, times, "n1".into(), &points, &evals)
+    Scheduler::new(
+        std::sync::Arc::new(spec),
+        times,
+        "n1".into(),
+        &points,
+        &evals,
+    )
 }
 
 fn info(models: &[&str]) -> JoinInfo {

@@ -440,37 +440,72 @@ fn builtin_model_misspelled_parameter_is_an_error_with_a_suggestion() {
     let e = one_error(&TILING.replace("[params.height_sd]", "[params.hieght_sd]"));
     assert_eq!((e.line, e.column), (5, 9), "{e}");
     assert_eq!(e.key, "params.hieght_sd");
-    assert!(e.message.contains("did you mean `height_sd`"), "{}", e.message);
-    assert!(e.message.contains("exclusion_sd"), "lists the inputs: {}", e.message);
+    assert!(
+        e.message.contains("did you mean `height_sd`"),
+        "{}",
+        e.message
+    );
+    assert!(
+        e.message.contains("exclusion_sd"),
+        "lists the inputs: {}",
+        e.message
+    );
 }
 
 #[test]
 fn builtin_model_misspelled_metric_is_an_error_with_a_suggestion() {
     let e = one_error(&TILING.replace("\"territory_cv\"", "\"territory_vc\""));
-    assert_eq!((e.line, e.column, e.key.as_str()), (10, 12, "objective.minimize"));
-    assert!(e.message.contains("did you mean `territory_cv`"), "{}", e.message);
+    assert_eq!(
+        (e.line, e.column, e.key.as_str()),
+        (10, 12, "objective.minimize")
+    );
+    assert!(
+        e.message.contains("did you mean `territory_cv`"),
+        "{}",
+        e.message
+    );
     let t = format!("{TILING}[[target]]\nmetric = \"coverge\"\nvalue = 0.9\nsd = 0.05\n");
     let e = one_error(&t);
     assert_eq!((e.line, e.key.as_str()), (12, "target[1].metric"));
-    assert!(e.message.contains("did you mean `coverage`"), "{}", e.message);
+    assert!(
+        e.message.contains("did you mean `coverage`"),
+        "{}",
+        e.message
+    );
 }
 
 #[test]
 fn builtin_model_range_beyond_the_model_and_bad_fixed_inputs_are_errors() {
-    let e = one_error(&TILING.replace("range = [0.0, 10.0]\n[params.exclusion]", "range = [0.0, 150.0]\n[params.exclusion]"));
+    let e = one_error(&TILING.replace(
+        "range = [0.0, 10.0]\n[params.exclusion]",
+        "range = [0.0, 150.0]\n[params.exclusion]",
+    ));
     assert_eq!(e.key, "params.height_sd.range");
     assert!(e.message.contains("[0, 100 um]"), "{}", e.message);
-    let e = one_error(&TILING.replace("name = \"tiling\"\n", "name = \"tiling\"\n[model.fixed]\ndurration_h = 4\n"));
+    let e = one_error(&TILING.replace(
+        "name = \"tiling\"\n",
+        "name = \"tiling\"\n[model.fixed]\ndurration_h = 4\n",
+    ));
     assert_eq!(e.key, "model.fixed.durration_h");
-    assert!(e.message.contains("did you mean `duration_h`"), "{}", e.message);
-    let e = one_error(&TILING.replace("name = \"tiling\"\n", "name = \"tiling\"\n[model.fixed]\nduration_h = \"long\"\n"));
+    assert!(
+        e.message.contains("did you mean `duration_h`"),
+        "{}",
+        e.message
+    );
+    let e = one_error(&TILING.replace(
+        "name = \"tiling\"\n",
+        "name = \"tiling\"\n[model.fixed]\nduration_h = \"long\"\n",
+    ));
     assert_eq!(e.key, "model.fixed.duration_h");
 }
 
 #[test]
 fn external_command_of_a_builtin_name_skips_the_builtin_rules() {
     let text = TILING
-        .replace("name = \"tiling\"\n", "name = \"tiling\"\ncommand = [\"./sim\"]\n")
+        .replace(
+            "name = \"tiling\"\n",
+            "name = \"tiling\"\ncommand = [\"./sim\"]\n",
+        )
         .replace("[params.height_sd]", "[params.hieght_sd]");
     assert!(spec::parse(&text, "f").is_ok());
 }
@@ -481,17 +516,31 @@ fn builtin_model_units_are_inherited() {
     assert_eq!(s.params[0].unit, "um");
     assert_eq!(s.metric_unit("mean_territory"), "um^3");
     // A unit written in the file wins.
-    let s = spec::parse(&TILING.replace("range = [0.0, 10.0]\n[params.exclusion]", "range = [0.0, 10.0]\nunit = \"micron\"\n[params.exclusion]"), "f").expect("valid");
+    let s = spec::parse(
+        &TILING.replace(
+            "range = [0.0, 10.0]\n[params.exclusion]",
+            "range = [0.0, 10.0]\nunit = \"micron\"\n[params.exclusion]",
+        ),
+        "f",
+    )
+    .expect("valid");
     assert_eq!(s.params[0].unit, "micron");
 }
 
 #[test]
 fn builtin_model_limit_crossed_by_the_box_is_a_warning() {
     // At density 60 and exclusion 20 the packing fraction is 60 pi 400 / 4e4 = 1.88.
-    let text = TILING.replace("[params.exclusion]\nrange = [0.0, 10.0]", "[params.exclusion]\nrange = [0.0, 20.0]\n[params.density]\nrange = [10.0, 60.0]");
+    let text = TILING.replace(
+        "[params.exclusion]\nrange = [0.0, 10.0]",
+        "[params.exclusion]\nrange = [0.0, 20.0]\n[params.density]\nrange = [10.0, 60.0]",
+    );
     let (_, w) = spec::parse_with_warnings(&text, "f").expect("valid");
     assert_eq!(w.len(), 1, "{w:?}");
-    assert!(w[0].message.contains("density = 60") && w[0].message.contains("1.88"), "{}", w[0].message);
+    assert!(
+        w[0].message.contains("density = 60") && w[0].message.contains("1.88"),
+        "{}",
+        w[0].message
+    );
     let (_, w) = spec::parse_with_warnings(TILING, "f").expect("valid");
     assert!(w.is_empty(), "{w:?}");
 }

@@ -98,7 +98,6 @@ impl RunFailure {
     }
 }
 
-
 #[cfg(test)]
 mod tests {
     use super::*;

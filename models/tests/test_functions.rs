@@ -7,9 +7,7 @@ use std::f64::consts::PI;
 
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use tessera_models::test_functions::{
-    branin, goldstein_price, hartmann3, hartmann6, ishigami,
-};
+use tessera_models::test_functions::{branin, goldstein_price, hartmann3, hartmann6, ishigami};
 use tessera_models::{find, run_builtin};
 
 fn inputs(pairs: &[(&str, f64)]) -> BTreeMap<String, f64> {

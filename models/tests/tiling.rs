@@ -10,9 +10,9 @@ use std::sync::atomic::AtomicBool;
 
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
+use tessera_models::outcome::FailureKind;
 use tessera_models::tiling::{poisson_regularity_index, simulate, Outcome, Params};
 use tessera_models::{find, run_builtin};
-use tessera_models::outcome::FailureKind;
 
 fn sim(p: &Params, seed: u64) -> Outcome {
     simulate(p, seed, &AtomicBool::new(false)).expect("valid parameters")

@@ -1,14 +1,15 @@
-//! The tessera wire protocol: `proto/tessera.proto` and the Rust code tonic
-//! generates from it at build time.
+//! The tessera wire protocol: `proto/tessera.proto`, the Rust code tonic
+//! generates from it at build time, and [`channel`], the one builder every
+//! client uses to dial a coordinator (address check, TLS, token, timeouts).
 //!
-//! This crate owns the message and service definitions and nothing else: no
-//! hand-written logic. The coordinator and the worker each convert these types
-//! to their own domain types in one module (`coordinator::wire`,
-//! `worker::wire`), so domain code never sees prost types.
+//! This crate must not hold sweep logic. The coordinator converts these
+//! types to its domain types in `coordinator/src/wire.rs` and the worker in
+//! `worker/src/session.rs`, so the rest of the code never sees prost types.
 
-#![allow(clippy::all, missing_docs)]
+pub mod channel;
 
 /// Generated messages and the `Coordinator` service (client and server).
+#[allow(clippy::all, missing_docs)]
 pub mod v1 {
     tonic::include_proto!("tessera.v1");
 }

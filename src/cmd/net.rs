@@ -2,17 +2,33 @@
 
 use anyhow::{bail, Context};
 use std::net::{SocketAddr, ToSocketAddrs};
-use std::path::Path;
+use std::path::{Path, PathBuf};
+pub use tessera_proto::channel::Dial;
+
+/// Fewest characters in a token. 16 hex characters are 64 random bits: too
+/// many to try over a network (our choice; `openssl rand -hex 32` gives 64).
+pub const MIN_TOKEN_CHARS: usize = 16;
 
 /// Reads a token file: the token is the file's content, trimmed.
 pub fn read_token(path: &Path) -> anyhow::Result<String> {
-    let text = std::fs::read_to_string(path)
+    use std::io::Read;
+    let mut bytes = Vec::new();
+    std::fs::File::open(path)
+        .and_then(|f| f.take(64 * 1024).read_to_end(&mut bytes))
         .with_context(|| format!("cannot read the token file {}", path.display()))?;
-    let token = text.trim().to_string();
-    if token.is_empty() {
+    let Ok(text) = String::from_utf8(bytes) else {
         bail!(
-            "the token file {} is empty; put a long random string in it, for example: openssl rand -hex 32 > {}",
+            "the token file {} is not text; make one with: openssl rand -hex 32 > {}",
             path.display(),
+            path.display()
+        );
+    };
+    let token = text.trim().to_string();
+    if token.len() < MIN_TOKEN_CHARS {
+        bail!(
+            "the token in {} has {} characters; use at least {MIN_TOKEN_CHARS}, because a short token can be guessed by anyone who can reach the port. Make one with: openssl rand -hex 32 > {}",
+            path.display(),
+            token.len(),
             path.display()
         );
     }
@@ -70,33 +86,32 @@ pub fn host_name() -> String {
         .unwrap_or_else(|| "localhost".to_string())
 }
 
-/// A gRPC client for a coordinator at `url`, for the query commands.
-pub async fn query_client(
-    url: &str,
-) -> anyhow::Result<
-    tessera_proto::v1::coordinator_client::CoordinatorClient<tonic::transport::Channel>,
-> {
-    let channel = tonic::transport::Endpoint::from_shared(url.to_string())
-        .with_context(|| {
-            format!("--coordinator {url:?} is not a URL; use for example http://10.0.0.5:7300")
-        })?
-        .connect_timeout(std::time::Duration::from_secs(5))
-        .connect()
-        .await
-        .with_context(|| format!("cannot reach the coordinator at {url}"))?;
-    Ok(tessera_proto::v1::coordinator_client::CoordinatorClient::new(channel))
+/// How to reach a running coordinator (for the query commands).
+#[derive(clap::Args, Debug, Clone)]
+pub struct CoordinatorArgs {
+    /// Ask a running coordinator (http://HOST:PORT, or https:// with --ca).
+    #[arg(long, value_name = "URL")]
+    pub coordinator: Option<String>,
+    /// Token file, for a coordinator that requires one.
+    #[arg(long, value_name = "FILE", requires = "coordinator")]
+    pub token_file: Option<PathBuf>,
+    /// CA certificate (PEM) to trust when the coordinator uses TLS (https://).
+    #[arg(long, value_name = "FILE", requires = "coordinator")]
+    pub ca: Option<PathBuf>,
 }
 
-/// Adds `authorization: Bearer <token>` to a request.
-pub fn with_token<T>(
-    mut req: tonic::Request<T>,
-    token: Option<&str>,
-) -> anyhow::Result<tonic::Request<T>> {
-    if let Some(t) = token {
-        let v = format!("Bearer {t}").parse().map_err(|_| {
-            anyhow::anyhow!("the token contains characters not allowed in a header")
-        })?;
-        req.metadata_mut().insert("authorization", v);
-    }
-    Ok(req)
+/// Reads the token and CA files named on the command line.
+pub fn dial(url: &str, token_file: Option<&Path>, ca: Option<&Path>) -> anyhow::Result<Dial> {
+    let token = token_file.map(read_token).transpose()?;
+    let ca_pem = match ca {
+        Some(p) => {
+            Some(std::fs::read(p).with_context(|| format!("cannot read --ca {}", p.display()))?)
+        }
+        None => None,
+    };
+    Ok(Dial {
+        url: url.to_string(),
+        token,
+        ca_pem,
+    })
 }

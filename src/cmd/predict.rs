@@ -7,6 +7,7 @@ use std::collections::BTreeMap;
 use std::io::Write as _;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
+use tessera_coordinator::client::QueryClient;
 use tessera_coordinator::query::{self, PointPrediction};
 use tessera_coordinator::spec::Spec;
 
@@ -44,12 +45,8 @@ pub struct PredictArgs {
     /// The sweep database.
     #[arg(long, value_name = "FILE")]
     pub db: Option<PathBuf>,
-    /// Ask a running coordinator instead of reading the database.
-    #[arg(long, value_name = "URL")]
-    pub coordinator: Option<String>,
-    /// Token file, for a coordinator that requires one.
-    #[arg(long, value_name = "FILE", requires = "coordinator")]
-    pub token_file: Option<PathBuf>,
+    #[command(flatten)]
+    pub remote: net::CoordinatorArgs,
     /// One point: a value for every parameter, e.g. height_sd=2.5.
     #[arg(value_name = "NAME=VALUE")]
     pub values: Vec<String>,
@@ -165,26 +162,11 @@ fn points_of(
 }
 
 async fn from_coordinator(
-    url: &str,
-    token: Option<String>,
+    dial: net::Dial,
     points: Vec<BTreeMap<String, f64>>,
 ) -> anyhow::Result<Vec<PointPrediction>> {
-    use tessera_proto::v1 as pb;
-    let mut client = super::net::query_client(url).await?;
-    let req = tonic::Request::new(pb::PredictRequest {
-        points: points
-            .into_iter()
-            .map(|p| pb::PointValues {
-                values: p.into_iter().collect(),
-            })
-            .collect(),
-    });
-    let req = super::net::with_token(req, token.as_deref())?;
-    let reply = client
-        .predict(req)
-        .await
-        .map_err(|s| anyhow::anyhow!("the coordinator answered: {}", s.message()))?;
-    Ok(query::wire::predictions_from_reply(reply.into_inner()))
+    let mut client = QueryClient::new(&dial)?;
+    Ok(client.predict(points).await?)
 }
 
 /// Pads each column to its widest cell.
@@ -303,7 +285,7 @@ fn to_json(preds: &[PointPrediction]) -> serde_json::Value {
 
 /// Runs `tessera predict`.
 pub fn run(args: PredictArgs) -> anyhow::Result<ExitCode> {
-    let (preds, spec) = match (&args.db, &args.coordinator) {
+    let (preds, spec) = match (&args.db, &args.remote.coordinator) {
         (Some(db), _) => {
             let (spec, fits) = query::load_fits(db)?;
             let points = points_of(&args, Some(&spec))?;
@@ -311,13 +293,13 @@ pub fn run(args: PredictArgs) -> anyhow::Result<ExitCode> {
         }
         (None, Some(url)) => {
             let points = points_of(&args, None)?;
-            let token = args
-                .token_file
-                .as_deref()
-                .map(net::read_token)
-                .transpose()?;
+            let dial = net::dial(
+                url,
+                args.remote.token_file.as_deref(),
+                args.remote.ca.as_deref(),
+            )?;
             let rt = tokio::runtime::Runtime::new().context("cannot start the async runtime")?;
-            (rt.block_on(from_coordinator(url, token, points))?, None)
+            (rt.block_on(from_coordinator(dial, points))?, None)
         }
         (None, None) => bail!("give --db FILE or --coordinator URL"),
     };

@@ -10,15 +10,12 @@ use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 use std::sync::Arc;
 use std::time::{Duration, Instant};
+use tessera::cluster::{ClusterOptions, LocalCluster};
 use tessera_coordinator::engine::{Engine, OpenOptions};
 use tessera_coordinator::scheduler::LeaseTimes;
-use tessera_coordinator::server::{self, ServeOptions};
-use tessera_coordinator::service::CoordinatorService;
+use tessera_coordinator::server::ServeOptions;
 use tessera_coordinator::status::SweepStatus;
-use tessera_worker::client::{self, WorkerOptions};
 use tessera_worker::runner::{RunnerConfig, Runners};
-use tessera_worker::spool::Spool;
-use tokio_util::sync::CancellationToken;
 
 /// Arguments of `tessera run`.
 #[derive(clap::Args, Debug)]
@@ -140,7 +137,7 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
         force: args.force,
         times: LeaseTimes::default(),
     })?;
-    let spec = engine.spec();
+    let spec = engine.spec().clone();
     let n = match args.workers {
         Some(0) => anyhow::bail!("--workers must be at least 1"),
         Some(n) => n,
@@ -163,44 +160,21 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
     }));
     let rt = tokio::runtime::Runtime::new().context("cannot start the async runtime")?;
     let outcome = rt.block_on(async move {
-        let listener = tokio::net::TcpListener::bind("127.0.0.1:0")
-            .await
-            .context("cannot open a loopback port")?;
-        let addr = listener.local_addr()?;
-        let stop_server = CancellationToken::new();
-        let stop_workers = CancellationToken::new();
-        let service = CoordinatorService::new(engine.clone());
-        let server_stop = stop_server.clone();
-        // The coordinator; ends when `stop_server` is cancelled after the workers.
-        let server = tokio::spawn(server::serve(
+        // One in-process worker per slot; each ends when the sweep is
+        // finished or the cluster is stopped (Ctrl-C).
+        let mut cluster = LocalCluster::start(
             engine.clone(),
-            service,
-            listener,
-            ServeOptions::default(),
-            async move { server_stop.cancelled().await },
-        ));
-        // One in-process worker per slot; each ends when the sweep is finished
-        // or `stop_workers` is cancelled (Ctrl-C).
-        let mut workers = tokio::task::JoinSet::new();
-        for i in 0..n {
-            let opts = WorkerOptions {
-                coordinator: format!("http://{addr}"),
-                name: format!("local-{}", i + 1),
+            ClusterOptions {
+                workers: n,
+                slots_per_worker: 1,
+                runner: runners,
+                serve: ServeOptions::default(),
+                name: "local".to_string(),
                 host: net::host_name(),
-                slots: 1,
-                token: None,
-                ca_pem: None,
-                spool: Spool::new(None),
                 grace: Duration::from_secs(5),
-                exit_when_finished: true,
-                max_backoff: Duration::from_secs(2),
-            };
-            let stop = stop_workers.clone();
-            let runners = runners.clone();
-            workers.spawn(async move {
-                client::run(opts, runners, async move { stop.cancelled().await }).await
-            });
-        }
+            },
+        )
+        .await?;
         let st = engine.status();
         let bar = ProgressBar::new(st.evaluations_total);
         if std::io::stderr().is_terminal() {
@@ -242,7 +216,7 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
                 );
                 last_line = Instant::now();
             }
-            if st.finished || workers.is_empty() {
+            if st.finished || cluster.workers_done() {
                 break;
             }
             tokio::select! {
@@ -252,24 +226,14 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
                     break;
                 }
                 _ = tokio::time::sleep(Duration::from_millis(200)) => {}
-                Some(r) = workers.join_next() => {
-                    if let Ok(Err(e)) = r {
+                r = cluster.next_worker_end() => {
+                    if let Err(e) = r {
                         tracing::error!(error = %e, "a local worker stopped");
                     }
                 }
             }
         }
-        stop_workers.cancel();
-        while let Some(r) = workers.join_next().await {
-            if let Ok(Err(e)) = r {
-                tracing::error!(error = %e, "a local worker stopped");
-            }
-        }
-        stop_server.cancel();
-        match server.await {
-            Ok(r) => r?,
-            Err(e) => anyhow::bail!("the coordinator task failed: {e}"),
-        }
+        cluster.stop().await?;
         bar.finish_and_clear();
         let st = engine.status();
         super::status::print_human(&st, Some(&spec));

@@ -5,6 +5,7 @@ use super::net;
 use anyhow::Context;
 use std::path::PathBuf;
 use std::process::ExitCode;
+use tessera_coordinator::client::QueryClient;
 use tessera_coordinator::spec::{self, Spec};
 use tessera_coordinator::status::{self, SweepStatus};
 use tessera_coordinator::store::Store;
@@ -23,12 +24,8 @@ pub struct StatusArgs {
     /// Read the sweep database.
     #[arg(long, value_name = "FILE")]
     pub db: Option<PathBuf>,
-    /// Ask a running coordinator (it also knows its workers).
-    #[arg(long, value_name = "URL")]
-    pub coordinator: Option<String>,
-    /// Token file, for a coordinator that requires one.
-    #[arg(long, value_name = "FILE")]
-    pub token_file: Option<PathBuf>,
+    #[command(flatten)]
+    pub remote: net::CoordinatorArgs,
     /// Print one JSON object instead of tables.
     #[arg(long)]
     pub json: bool,
@@ -51,19 +48,9 @@ pub fn from_db(db: &std::path::Path) -> anyhow::Result<(SweepStatus, Spec)> {
     Ok((status::from_records(&spec, &points, &evals), spec))
 }
 
-async fn from_coordinator(url: &str, token: Option<String>) -> anyhow::Result<SweepStatus> {
-    let mut client = net::query_client(url).await?;
-    let req = net::with_token(
-        tonic::Request::new(tessera_proto::v1::StatusRequest {}),
-        token.as_deref(),
-    )?;
-    let reply = client
-        .status(req)
-        .await
-        .map_err(|s| anyhow::anyhow!("the coordinator answered: {}", s.message()))?;
-    Ok(tessera_coordinator::service::status_from_reply(
-        reply.into_inner(),
-    ))
+async fn from_coordinator(dial: net::Dial) -> anyhow::Result<SweepStatus> {
+    let mut client = QueryClient::new(&dial)?;
+    Ok(client.status().await?)
 }
 
 fn unit_of<'a>(spec: Option<&'a Spec>, name: &str) -> &'a str {
@@ -139,19 +126,19 @@ pub fn print_human(st: &SweepStatus, spec: Option<&Spec>) {
 
 /// Runs `tessera status`.
 pub fn run(args: StatusArgs) -> anyhow::Result<ExitCode> {
-    let (st, spec) = match (&args.db, &args.coordinator) {
+    let (st, spec) = match (&args.db, &args.remote.coordinator) {
         (Some(db), _) => {
             let (st, spec) = from_db(db)?;
             (st, Some(spec))
         }
         (None, Some(url)) => {
-            let token = args
-                .token_file
-                .as_deref()
-                .map(net::read_token)
-                .transpose()?;
+            let dial = net::dial(
+                url,
+                args.remote.token_file.as_deref(),
+                args.remote.ca.as_deref(),
+            )?;
             let rt = tokio::runtime::Runtime::new().context("cannot start the async runtime")?;
-            (rt.block_on(from_coordinator(url, token))?, None)
+            (rt.block_on(from_coordinator(dial))?, None)
         }
         (None, None) => anyhow::bail!("give --db FILE or --coordinator URL"),
     };

@@ -5,8 +5,8 @@ use anyhow::Context;
 use std::path::PathBuf;
 use std::process::ExitCode;
 use std::sync::Arc;
-use tessera_worker::client::{self, WorkerError, WorkerOptions};
 use tessera_worker::runner::{parse_command_arg, RunnerConfig, Runners};
+use tessera_worker::session::{self, Ending, WorkerError, WorkerOptions};
 use tessera_worker::spool::Spool;
 
 /// Arguments of `tessera worker`.
@@ -57,6 +57,9 @@ pub struct WorkerArgs {
     /// Keep running after the sweep is finished (wait for more work).
     #[arg(long)]
     pub stay: bool,
+    /// Exit after this long with nothing running and no work offered (e.g. 10m).
+    #[arg(long, value_name = "DURATION")]
+    pub idle_exit: Option<humantime::Duration>,
 }
 
 fn default_spool(name: &str) -> Option<PathBuf> {
@@ -82,17 +85,11 @@ pub fn run(args: WorkerArgs) -> anyhow::Result<ExitCode> {
     for c in &args.commands {
         commands.push(parse_command_arg(c).map_err(|e| anyhow::anyhow!("--command {c:?}: {e}"))?);
     }
-    let token = args
-        .token_file
-        .as_deref()
-        .map(net::read_token)
-        .transpose()?;
-    let ca_pem = match &args.ca {
-        Some(p) => {
-            Some(std::fs::read(p).with_context(|| format!("cannot read --ca {}", p.display()))?)
-        }
-        None => None,
-    };
+    let dial = net::dial(
+        &args.coordinator,
+        args.token_file.as_deref(),
+        args.ca.as_deref(),
+    )?;
     let slots = match args.slots {
         Some(0) => anyhow::bail!("--slots must be at least 1"),
         Some(n) => n,
@@ -114,15 +111,14 @@ pub fn run(args: WorkerArgs) -> anyhow::Result<ExitCode> {
     }
     let runners = Arc::new(Runners::new(cfg));
     let opts = WorkerOptions {
-        coordinator: args.coordinator.clone(),
+        dial,
         name: name.clone(),
         host,
         slots,
-        token,
-        ca_pem,
         spool: Spool::new(spool),
         grace: args.grace.into(),
         exit_when_finished: !args.stay,
+        idle_exit: args.idle_exit.map(Into::into),
         max_backoff: std::time::Duration::from_secs(30),
     };
     let rt = tokio::runtime::Runtime::new().context("cannot start the async runtime")?;
@@ -130,18 +126,18 @@ pub fn run(args: WorkerArgs) -> anyhow::Result<ExitCode> {
         "tessera worker {name} with {slots} slots, coordinator {}",
         args.coordinator
     );
-    let result = rt.block_on(client::run(opts, runners, net::stop_signal()));
+    let result = rt.block_on(session::run(opts, runners, net::stop_signal()));
     match result {
         Ok(s) => {
             eprintln!(
-                "worker stopped: {} results delivered, {} handed back, {} undelivered{}",
+                "worker stopped: {} results delivered, {} handed back, {} undelivered ({})",
                 s.delivered,
                 s.handed_back,
                 s.undelivered,
-                if s.sweep_finished {
-                    " (sweep finished)"
-                } else {
-                    ""
+                match s.ending {
+                    Ending::SweepFinished => "sweep finished",
+                    Ending::Stopped => "told to stop",
+                    Ending::Idle => "idle",
                 }
             );
             Ok(ExitCode::SUCCESS)

@@ -117,7 +117,7 @@ fn worker_with_wrong_token_is_refused_and_leases_nothing() {
     let dir = tmp.path();
     let spec = branin_spec(dir, 4, 1, 0);
     std::fs::write(dir.join("good.token"), "correct-horse-battery-staple\n").expect("token");
-    std::fs::write(dir.join("bad.token"), "not-the-token\n").expect("token");
+    std::fs::write(dir.join("bad.token"), "not-the-right-token-at-all\n").expect("token");
     let db = dir.join("sweep.db");
     let port = free_port();
     let good = dir.join("good.token");
@@ -246,6 +246,7 @@ fn a_result_sent_twice_is_stored_once() {
                 .report(pb::ReportRequest {
                     worker_id: join.worker_id.clone(),
                     results: vec![result(v)],
+                    worker_name: "raw-client".into(),
                 })
                 .await
                 .expect("report")

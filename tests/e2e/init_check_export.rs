@@ -301,8 +301,9 @@ fn export_writes_one_row_per_evaluation() {
     assert!(leftovers.is_empty(), "no temporary file left");
 
     let out = tessera(&["export", "--db", "s.db", "--units"], dir.path());
-    assert!(text(&out.stdout)
-        .starts_with("point,origin,replicate,seed,status,height_mean [um],density [cells/10^4 um^2],reach [um],"));
+    assert!(text(&out.stdout).starts_with(
+        "point,origin,replicate,seed,status,height_mean [um],density [cells/10^4 um^2],reach [um],"
+    ));
 
     let out = tessera(&["export", "--db", "s.db", "--format", "jsonl"], dir.path());
     assert!(out.status.success(), "{}", text(&out.stderr));

@@ -5,10 +5,10 @@
 //! It must not decide what to run next: the coordinator does. It runs only
 //! the built-in models and the external commands its own operator configured.
 
-pub mod client;
 pub mod external;
 pub mod request;
 pub mod runner;
+pub mod session;
 pub mod spool;
 
 /// The built-in models (re-exported from `tessera-models`).

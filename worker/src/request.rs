@@ -56,4 +56,3 @@ pub fn format_duration(d: Duration) -> String {
         format!("{} s", d.as_secs_f64())
     }
 }
-

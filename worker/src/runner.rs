@@ -18,8 +18,8 @@ use std::sync::Arc;
 use tokio_util::sync::CancellationToken;
 
 use crate::external::ExternalCommand;
-use tessera_models as models;
 pub use crate::request::{format_duration, RunRequest};
+use tessera_models as models;
 pub use tessera_models::outcome::{FailureKind, Metrics, RunFailure};
 
 /// The future a [`Runner`] returns.

@@ -12,6 +12,23 @@ use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
+/// What a finished run produced: metrics, or a failure. Never both.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum RunOutcome {
+    /// The run reported these metrics.
+    Metrics(BTreeMap<String, f64>),
+    /// The run failed.
+    Failure {
+        /// Failure kind (`exit`, `timeout`, ...).
+        kind: String,
+        /// What went wrong, in words.
+        reason: String,
+        /// The end of the simulator's stderr.
+        stderr_tail: String,
+    },
+}
+
 /// One finished run waiting for acknowledgement.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct Spooled {
@@ -25,10 +42,55 @@ pub struct Spooled {
     pub started_unix_ms: u64,
     /// End time, Unix ms.
     pub ended_unix_ms: u64,
-    /// Metrics of a successful run.
-    pub metrics: Option<BTreeMap<String, f64>>,
-    /// Failure of an unsuccessful run: kind, reason, stderr tail.
-    pub failure: Option<(String, String, String)>,
+    /// Metrics or failure.
+    pub outcome: RunOutcome,
+}
+
+/// The line layout of spool files written before [`RunOutcome`] existed
+/// (metrics and failure side by side), still read so that a worker upgraded
+/// with results in its spool delivers them.
+#[derive(Deserialize)]
+struct EarlierLine {
+    lease_id: String,
+    evaluation_id: u64,
+    attempt: u32,
+    started_unix_ms: u64,
+    ended_unix_ms: u64,
+    metrics: Option<BTreeMap<String, f64>>,
+    failure: Option<(String, String, String)>,
+}
+
+impl EarlierLine {
+    fn upgrade(self) -> Option<Spooled> {
+        let outcome = match (self.metrics, self.failure) {
+            (Some(m), None) => RunOutcome::Metrics(m),
+            (None, Some((kind, reason, stderr_tail))) => RunOutcome::Failure {
+                kind,
+                reason,
+                stderr_tail,
+            },
+            _ => return None,
+        };
+        Some(Spooled {
+            lease_id: self.lease_id,
+            evaluation_id: self.evaluation_id,
+            attempt: self.attempt,
+            started_unix_ms: self.started_unix_ms,
+            ended_unix_ms: self.ended_unix_ms,
+            outcome,
+        })
+    }
+}
+
+/// Parses one spool line, in the current or the earlier layout.
+fn parse_line(line: &str) -> Result<Spooled, String> {
+    match serde_json::from_str::<Spooled>(line) {
+        Ok(s) => Ok(s),
+        Err(e) => serde_json::from_str::<EarlierLine>(line)
+            .ok()
+            .and_then(EarlierLine::upgrade)
+            .ok_or_else(|| e.to_string()),
+    }
 }
 
 /// Where the spool lives (or nowhere: results are kept in memory only).
@@ -91,10 +153,10 @@ impl Spool {
             if line.trim().is_empty() {
                 continue;
             }
-            let s: Spooled = serde_json::from_str(line).map_err(|e| SpoolError::Corrupt {
+            let s = parse_line(line).map_err(|message| SpoolError::Corrupt {
                 path: path.display().to_string(),
                 line: i + 1,
-                message: e.to_string(),
+                message,
             })?;
             out.push(s);
         }
@@ -146,8 +208,7 @@ mod tests {
             attempt: 1,
             started_unix_ms: 1,
             ended_unix_ms: 2,
-            metrics: Some(BTreeMap::from([("value".to_string(), 0.5)])),
-            failure: None,
+            outcome: RunOutcome::Metrics(BTreeMap::from([("value".to_string(), 0.5)])),
         }
     }
 
@@ -160,6 +221,51 @@ mod tests {
         spool.save(&[]).expect("save empty");
         assert!(!dir.path().join("s").join("spool.jsonl").exists());
         assert!(spool.load().expect("load").is_empty());
+    }
+
+    #[test]
+    fn earlier_layout_is_still_read() {
+        let line = r#"{"lease_id":"7.x.1","evaluation_id":7,"attempt":1,"started_unix_ms":1,"ended_unix_ms":2,"metrics":null,"failure":["exit","code 3","oops"]}"#;
+        let s = parse_line(line).expect("earlier layout");
+        assert_eq!(
+            s.outcome,
+            RunOutcome::Failure {
+                kind: "exit".into(),
+                reason: "code 3".into(),
+                stderr_tail: "oops".into()
+            }
+        );
+        let both = line.replace("\"metrics\":null", "\"metrics\":{\"a\":1.0}");
+        assert!(parse_line(&both).is_err(), "metrics and failure together");
+    }
+
+    #[test]
+    fn values_come_back_bit_for_bit() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let spool = Spool::new(Some(dir.path().join("spool.jsonl")));
+        let hard = [
+            25854.295647428462,
+            5e-324,
+            2.2250738585072014e-308,
+            1e308,
+            0.1 + 0.2,
+            -0.0,
+        ];
+        let mut it = item(1);
+        it.outcome = RunOutcome::Metrics(
+            hard.iter()
+                .enumerate()
+                .map(|(i, v)| (format!("m{i}"), *v))
+                .collect(),
+        );
+        spool.save(std::slice::from_ref(&it)).expect("save");
+        let back = spool.load().expect("load");
+        let RunOutcome::Metrics(m) = &back[0].outcome else {
+            panic!("metrics expected")
+        };
+        for (i, v) in hard.iter().enumerate() {
+            assert_eq!(m[&format!("m{i}")].to_bits(), v.to_bits(), "{v:e}");
+        }
     }
 
     #[test]

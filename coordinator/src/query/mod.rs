@@ -5,13 +5,11 @@
 //! Queries read fits made by [`crate::fitter`]; they never run simulations.
 //! The same answers are given offline from the database file
 //! (`tessera predict --db`) and online by the coordinator's `Predict` call
-//! ([`predict_fn`]); [`wire`] holds the conversion to and from the gRPC
-//! messages.
+//! (through [`crate::wire`]).
 
 mod predict;
 mod trend;
 mod verdict;
-pub mod wire;
 
 pub use predict::{
     natural_to_unit, parse_assignment, predict, short as short_number, MetricPrediction,
@@ -21,7 +19,6 @@ pub use trend::{trend, Observed, Trend, TrendStep};
 pub use verdict::{
     check_fit, FitVerdict, Verdict, MAX_COVERAGE, MIN_COVERAGE, MIN_Q2, POINTS_PER_PARAM,
 };
-pub use wire::{predict_fn, predict_reply, PredictFn};
 
 use crate::spec::{self, Spec};
 use crate::store::{Store, StoreError};

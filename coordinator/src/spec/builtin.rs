@@ -141,18 +141,17 @@ pub(super) fn apply(r: &mut Reader<'_>, root: &DeTable<'_>, spec: &mut Spec, mod
                     with_unit(info.hi, info.unit)
                 ),
             ),
-            Some(x) if x < info.lo || x > info.hi || (info.integer && x.fract() != 0.0) => r
-                .error(
-                    at,
-                    &path,
-                    format!(
-                        "{x} is not accepted by model {} for {name}: give {}a number in [{}, {}]",
-                        model.name,
-                        if info.integer { "a whole number, " } else { "" },
-                        info.lo,
-                        with_unit(info.hi, info.unit)
-                    ),
+            Some(x) if x < info.lo || x > info.hi || (info.integer && x.fract() != 0.0) => r.error(
+                at,
+                &path,
+                format!(
+                    "{x} is not accepted by model {} for {name}: give {}a number in [{}, {}]",
+                    model.name,
+                    if info.integer { "a whole number, " } else { "" },
+                    info.lo,
+                    with_unit(info.hi, info.unit)
                 ),
+            ),
             Some(_) => {}
         }
     }
@@ -204,11 +203,7 @@ pub(super) fn apply(r: &mut Reader<'_>, root: &DeTable<'_>, spec: &mut Spec, mod
         for (k, _) in m.iter() {
             let name: &str = k.get_ref();
             if model.metric(name).is_none() {
-                r.error(
-                    k.span().start,
-                    &join("metrics", name),
-                    unknown_metric(name),
-                );
+                r.error(k.span().start, &join("metrics", name), unknown_metric(name));
             }
         }
     }

@@ -185,7 +185,9 @@ pub enum ReadError {
         source: std::io::Error,
     },
     /// The file is larger than [`MAX_FILE_BYTES`].
-    #[error("{path} is larger than 16 MiB; a sweep file is a short text file (is this the right file?)")]
+    #[error(
+        "{path} is larger than 16 MiB; a sweep file is a short text file (is this the right file?)"
+    )]
     TooLarge {
         /// The path given.
         path: String,

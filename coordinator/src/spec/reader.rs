@@ -16,9 +16,7 @@ use toml::de::{DeTable, DeValue};
 use toml::Spanned;
 
 use super::error::LineIndex;
-use super::toml_access::{
-    closest, join, num, table_start, type_name, Reader, Value,
-};
+use super::toml_access::{closest, join, num, table_start, type_name, Reader, Value};
 use super::{
     Direction, ModelSpec, Objective, ParamSpec, Scale, Spec, SpecError, SpecErrors, Strategy,
     Target,

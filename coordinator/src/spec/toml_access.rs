@@ -197,7 +197,12 @@ impl Reader<'_> {
         }
     }
 
-    pub(super) fn nonempty_string(&mut self, v: &Value<'_>, key: &str, example: &str) -> Option<String> {
+    pub(super) fn nonempty_string(
+        &mut self,
+        v: &Value<'_>,
+        key: &str,
+        example: &str,
+    ) -> Option<String> {
         let s = self.string(v, key, example)?;
         if s.trim().is_empty() {
             self.error(
@@ -235,7 +240,14 @@ impl Reader<'_> {
     }
 
     /// A whole number in `[min, max]`.
-    pub(super) fn whole(&mut self, v: &Value<'_>, key: &str, min: i64, max: i64, what: &str) -> Option<i64> {
+    pub(super) fn whole(
+        &mut self,
+        v: &Value<'_>,
+        key: &str,
+        min: i64,
+        max: i64,
+        what: &str,
+    ) -> Option<i64> {
         let at = v.span().start;
         match parse_integer(v.get_ref()) {
             Some(Some(i)) if (min..=max).contains(&i) => Some(i),
