@@ -19,12 +19,30 @@
 //! `tokio::task::spawn_blocking`), so that results keep being committed
 //! while the surrogates are fitted.
 
-use crate::query::QueryError;
 use crate::spec::Spec;
 use crate::store::{EvalStatus, EvaluationRecord, FitRecord, NewFit, PointRecord, Store};
 use serde::{Deserialize, Serialize};
 use std::collections::{BTreeMap, BTreeSet};
 use tessera_surrogate::gp::{self, FitOptions, Gp, KernelKind, Observations};
+
+/// Why fits could not be made, read or stored.
+#[derive(Debug, thiserror::Error)]
+pub enum FitError {
+    /// The database could not be read or written.
+    #[error(transparent)]
+    Store(#[from] crate::store::StoreError),
+    /// A stored fit cannot be read back.
+    #[error("the stored surrogate of {metric} cannot be read: {reason}")]
+    DamagedFit {
+        /// The metric.
+        metric: String,
+        /// What is wrong.
+        reason: String,
+    },
+    /// A fit cannot be written out (a bug).
+    #[error("internal error: {0}")]
+    Internal(String),
+}
 
 /// Fewest points with results before a metric gets a surrogate
 /// (the planner uses the same minimum).
@@ -124,9 +142,9 @@ fn kernel_name(k: KernelKind) -> &'static str {
 
 impl MetricFit {
     /// The row to store with [`Store::save_fit`].
-    pub fn to_new_fit(&self) -> Result<NewFit, QueryError> {
+    pub fn to_new_fit(&self) -> Result<NewFit, FitError> {
         let model = serde_json::to_value(&self.gp).map_err(|e| {
-            QueryError::Internal(format!("cannot serialise the fit of {}: {e}", self.metric))
+            FitError::Internal(format!("cannot serialise the fit of {}: {e}", self.metric))
         })?;
         let diagnostics = serde_json::to_value(Diagnostics {
             layout: LAYOUT,
@@ -138,7 +156,7 @@ impl MetricFit {
             log_marginal_likelihood: self.gp.log_marginal_likelihood(),
         })
         .map_err(|e| {
-            QueryError::Internal(format!(
+            FitError::Internal(format!(
                 "cannot serialise the diagnostics of {}: {e}",
                 self.metric
             ))
@@ -153,8 +171,8 @@ impl MetricFit {
     }
 
     /// Reads a stored fit back (refactorising the GP).
-    pub fn from_record(r: &FitRecord) -> Result<MetricFit, QueryError> {
-        let damaged = |what: &str, e: &dyn std::fmt::Display| QueryError::DamagedFit {
+    pub fn from_record(r: &FitRecord) -> Result<MetricFit, FitError> {
+        let damaged = |what: &str, e: &dyn std::fmt::Display| FitError::DamagedFit {
             metric: r.metric.clone(),
             reason: format!("{what}: {e}"),
         };
@@ -415,11 +433,7 @@ pub fn fit_metrics(
 
 /// The latest stored fit of each metric that can still be read for this
 /// sweep's parameters. Fits that cannot be read are logged and left out.
-pub fn stored_fits(
-    store: &Store,
-    sweep_id: i64,
-    spec: &Spec,
-) -> Result<Vec<MetricFit>, QueryError> {
+pub fn stored_fits(store: &Store, sweep_id: i64, spec: &Spec) -> Result<Vec<MetricFit>, FitError> {
     let names: Vec<String> = spec.params.iter().map(|p| p.name.clone()).collect();
     let mut out = Vec::new();
     for r in store.latest_fits(sweep_id)? {
@@ -447,7 +461,7 @@ pub struct StalePlan {
 
 /// The fits that are missing or have fewer results than the data now hold,
 /// and the stored fits that are still current. Reads the store only.
-pub fn stale_jobs(store: &Store, sweep_id: i64, spec: &Spec) -> Result<StalePlan, QueryError> {
+pub fn stale_jobs(store: &Store, sweep_id: i64, spec: &Spec) -> Result<StalePlan, FitError> {
     let stored = stored_fits(store, sweep_id, spec)?;
     let points = store.points(sweep_id)?;
     let evals = store.evaluations(sweep_id)?;
@@ -468,12 +482,11 @@ pub fn stale_jobs(store: &Store, sweep_id: i64, spec: &Spec) -> Result<StalePlan
 /// The fit exactly as it will be read back from the store: through the same
 /// JSON text, so that a query answered right after a fit and one answered
 /// later from the file agree bit for bit.
-pub fn as_stored(f: &MetricFit) -> Result<MetricFit, QueryError> {
+pub fn as_stored(f: &MetricFit) -> Result<MetricFit, FitError> {
     let row = f.to_new_fit()?;
-    let text = |v: &serde_json::Value| -> Result<serde_json::Value, QueryError> {
-        serde_json::from_str(&v.to_string()).map_err(|e| {
-            QueryError::Internal(format!("fit of {} does not read back: {e}", f.metric))
-        })
+    let text = |v: &serde_json::Value| -> Result<serde_json::Value, FitError> {
+        serde_json::from_str(&v.to_string())
+            .map_err(|e| FitError::Internal(format!("fit of {} does not read back: {e}", f.metric)))
     };
     MetricFit::from_record(&FitRecord {
         id: 0,
@@ -487,7 +500,7 @@ pub fn as_stored(f: &MetricFit) -> Result<MetricFit, QueryError> {
 }
 
 /// Stores new fits.
-pub fn save_fits(store: &mut Store, sweep_id: i64, fits: &[MetricFit]) -> Result<(), QueryError> {
+pub fn save_fits(store: &mut Store, sweep_id: i64, fits: &[MetricFit]) -> Result<(), FitError> {
     for f in fits {
         store.save_fit(sweep_id, &f.to_new_fit()?)?;
     }
@@ -521,7 +534,7 @@ pub fn refit_if_stale(
     store: &mut Store,
     sweep_id: i64,
     spec: &Spec,
-) -> Result<Vec<MetricFit>, QueryError> {
+) -> Result<Vec<MetricFit>, FitError> {
     let plan = stale_jobs(store, sweep_id, spec)?;
     if plan.todo.is_empty() {
         return Ok(merge(plan, &[]));

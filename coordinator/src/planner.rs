@@ -9,8 +9,8 @@
 //! With too little data, or if the fit fails, the planner falls back to
 //! seeded uniform points and logs why.
 
-use crate::scheduler::PointResults;
 use crate::spec::{Spec, Strategy};
+use crate::status::PointResults;
 use rand::{Rng, SeedableRng};
 use tessera_surrogate::acquisition;
 use tessera_surrogate::gp::{self, FitOptions, Observations};

@@ -11,7 +11,7 @@
 //! tested with plain function calls and a fake clock ([`Clock`]).
 
 use crate::spec::Spec;
-use crate::status::{BestPoint, SweepStatus, WorkerStatus};
+use crate::status::{best_point, group_reason, BestPoint, PointResults, SweepStatus, WorkerStatus};
 use crate::store::{CommitResult, EvalStatus, EvaluationRecord, PointRecord};
 use std::collections::{BTreeMap, HashMap, HashSet, VecDeque};
 use std::time::{Duration, Instant, SystemTime, UNIX_EPOCH};
@@ -182,19 +182,6 @@ struct Worker {
     completed: u64,
     running: HashSet<i64>,
     left: bool,
-}
-
-/// Per-point results, for the best point and the planner.
-#[derive(Clone, Debug, Default)]
-pub struct PointResults {
-    /// Point row id.
-    pub point_id: i64,
-    /// Values in natural units, in spec parameter order.
-    pub values: Vec<f64>,
-    /// Metrics of each finished replicate.
-    pub replicates: Vec<BTreeMap<String, f64>>,
-    /// Replicates that failed for good.
-    pub failed: u32,
 }
 
 /// The live state of one sweep.
@@ -745,45 +732,20 @@ pub fn lease_evaluation(lease_id: &str) -> Option<i64> {
     lease_id.split('.').next()?.parse().ok()
 }
 
-/// Failure reasons grouped for `status`: the first line, at most 120 chars.
-pub fn group_reason(reason: &str) -> String {
-    let line = reason.lines().next().unwrap_or("").trim();
-    let line = if line.is_empty() {
-        "unknown failure"
-    } else {
-        line
-    };
-    line.chars().take(120).collect()
-}
-
-/// The best point among `points` by mean loss over finished replicates.
-pub fn best_point<'a>(
-    spec: &Spec,
-    points: impl Iterator<Item = &'a PointResults>,
-) -> Option<BestPoint> {
-    let mut best: Option<(f64, &PointResults)> = None;
-    for p in points {
-        let losses: Vec<f64> = p.replicates.iter().filter_map(|m| spec.loss(m)).collect();
-        if losses.is_empty() {
-            continue;
-        }
-        let mean = losses.iter().sum::<f64>() / losses.len() as f64;
-        if !mean.is_finite() {
-            continue;
-        }
-        if best.is_none_or(|(b, _)| mean < b) {
-            best = Some((mean, p));
-        }
-    }
-    best.map(|(loss, p)| BestPoint {
-        point_id: p.point_id,
-        params: spec
-            .params
-            .iter()
-            .zip(p.values.iter())
-            .map(|(ps, v)| (ps.name.clone(), *v))
-            .collect(),
-        objective: spec.display_objective(loss),
-        replicates: p.replicates.len() as u32,
-    })
+/// The status of a sweep from its stored points and evaluations alone (no
+/// live workers or leases: what is running counts as queued), counted by
+/// the same rules as a running coordinator.
+pub fn status_from_records(
+    spec: std::sync::Arc<Spec>,
+    points: &[PointRecord],
+    evaluations: &[EvaluationRecord],
+) -> SweepStatus {
+    Scheduler::new(
+        spec,
+        LeaseTimes::default(),
+        String::new(),
+        points,
+        evaluations,
+    )
+    .status(Instant::now())
 }

@@ -1,11 +1,10 @@
 //! What `tessera status` shows: a snapshot of a sweep's progress.
 //!
 //! The same [`SweepStatus`] comes from a running coordinator (over gRPC,
-//! with live workers) or from a database file alone (no workers known).
+//! with live workers) or from a database file alone (no workers known); the
+//! scheduler counts both (`scheduler::status_from_records` for the file).
 
-use crate::scheduler::{best_point, group_reason, PointResults};
 use crate::spec::Spec;
-use crate::store::{EvalStatus, EvaluationRecord, PointRecord};
 use serde::Serialize;
 use std::collections::BTreeMap;
 
@@ -79,62 +78,58 @@ pub struct SweepStatus {
     pub objective_label: String,
 }
 
-/// Computes the status of a sweep from its stored points and evaluations.
-pub fn from_records(
+/// Per-point results, for the best point and the planner.
+#[derive(Clone, Debug, Default)]
+pub struct PointResults {
+    /// Point row id.
+    pub point_id: i64,
+    /// Values in natural units, in spec parameter order.
+    pub values: Vec<f64>,
+    /// Metrics of each finished replicate.
+    pub replicates: Vec<BTreeMap<String, f64>>,
+    /// Replicates that failed for good.
+    pub failed: u32,
+}
+
+/// Failure reasons grouped for `status`: the first line, at most 120 chars.
+pub fn group_reason(reason: &str) -> String {
+    let line = reason.lines().next().unwrap_or("").trim();
+    let line = if line.is_empty() {
+        "unknown failure"
+    } else {
+        line
+    };
+    line.chars().take(120).collect()
+}
+
+/// The best point among `points` by mean loss over finished replicates.
+pub fn best_point<'a>(
     spec: &Spec,
-    points: &[PointRecord],
-    evaluations: &[EvaluationRecord],
-) -> SweepStatus {
-    let mut per_point: BTreeMap<i64, PointResults> = points
-        .iter()
-        .map(|p| {
-            (
-                p.id,
-                PointResults {
-                    point_id: p.id,
-                    values: p.values.clone(),
-                    replicates: Vec::new(),
-                    failed: 0,
-                },
-            )
-        })
-        .collect();
-    let (mut done, mut failed, mut queued) = (0u64, 0u64, 0u64);
-    let mut failures: BTreeMap<String, u64> = BTreeMap::new();
-    for e in evaluations {
-        match e.status {
-            EvalStatus::Done => {
-                done += 1;
-                if let Some(p) = per_point.get_mut(&e.point_id) {
-                    p.replicates.push(e.metrics.clone());
-                }
-            }
-            EvalStatus::Failed => {
-                failed += 1;
-                let reason = e.failure_reason.clone().unwrap_or_default();
-                *failures.entry(group_reason(&reason)).or_insert(0) += 1;
-            }
-            EvalStatus::Queued => queued += 1,
+    points: impl Iterator<Item = &'a PointResults>,
+) -> Option<BestPoint> {
+    let mut best: Option<(f64, &PointResults)> = None;
+    for p in points {
+        let losses: Vec<f64> = p.replicates.iter().filter_map(|m| spec.loss(m)).collect();
+        if losses.is_empty() {
+            continue;
+        }
+        let mean = losses.iter().sum::<f64>() / losses.len() as f64;
+        if !mean.is_finite() {
+            continue;
+        }
+        if best.is_none_or(|(b, _)| mean < b) {
+            best = Some((mean, p));
         }
     }
-    let budget_evals = u64::from(spec.budget) * u64::from(spec.replicates.max(1));
-    let mut failures: Vec<(String, u64)> = failures.into_iter().collect();
-    failures.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.cmp(&b.0)));
-    let total_known = done + failed + queued;
-    SweepStatus {
-        sweep: spec.name.clone(),
-        done,
-        failed,
-        running: 0,
-        queued: queued + budget_evals.saturating_sub(total_known),
-        budget: u64::from(spec.budget),
-        points: points.len() as u64,
-        replicates: spec.replicates,
-        evaluations_total: budget_evals,
-        workers: Vec::new(),
-        failures,
-        best: best_point(spec, per_point.values()),
-        finished: points.len() as u64 >= u64::from(spec.budget) && queued == 0,
-        objective_label: spec.objective_label(),
-    }
+    best.map(|(loss, p)| BestPoint {
+        point_id: p.point_id,
+        params: spec
+            .params
+            .iter()
+            .zip(p.values.iter())
+            .map(|(ps, v)| (ps.name.clone(), *v))
+            .collect(),
+        objective: spec.display_objective(loss),
+        replicates: p.replicates.len() as u32,
+    })
 }

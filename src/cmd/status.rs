@@ -6,8 +6,9 @@ use anyhow::Context;
 use std::path::PathBuf;
 use std::process::ExitCode;
 use tessera_coordinator::client::QueryClient;
+use tessera_coordinator::scheduler::status_from_records;
 use tessera_coordinator::spec::{self, Spec};
-use tessera_coordinator::status::{self, SweepStatus};
+use tessera_coordinator::status::SweepStatus;
 use tessera_coordinator::store::Store;
 
 /// Arguments of `tessera status`.
@@ -45,7 +46,9 @@ pub fn from_db(db: &std::path::Path) -> anyhow::Result<(SweepStatus, Spec)> {
     })?;
     let points = store.points(sweep.id)?;
     let evals = store.evaluations(sweep.id)?;
-    Ok((status::from_records(&spec, &points, &evals), spec))
+    let spec = std::sync::Arc::new(spec);
+    let st = status_from_records(spec.clone(), &points, &evals);
+    Ok((st, (*spec).clone()))
 }
 
 async fn from_coordinator(dial: net::Dial) -> anyhow::Result<SweepStatus> {

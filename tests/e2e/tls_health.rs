@@ -176,6 +176,54 @@ fn a_sweep_runs_over_tls_and_a_worker_without_the_ca_is_refused() {
         "{}",
         worker.output()
     );
+    // The query commands reach the same TLS coordinator with --ca.
+    let url = format!("https://localhost:{port}");
+    let ca = dir.join("ca.pem");
+    let out = tessera()
+        .args(["status", "--json", "--coordinator", &url, "--ca"])
+        .arg(&ca)
+        .output()
+        .expect("status");
+    ok(&out, "status over TLS");
+    let live: serde_json::Value = serde_json::from_slice(&out.stdout).expect("JSON");
+    assert_eq!(field(&live, "done"), 6, "{live}");
+    let out = tessera()
+        .args(["status", "--coordinator", &url])
+        .output()
+        .expect("status");
+    assert!(!out.status.success());
+    assert!(
+        text(&out.stderr).contains("no --ca was given"),
+        "{}",
+        text(&out.stderr)
+    );
+    // The coordinator refits its surrogates every few seconds; ask until it has one.
+    let started = std::time::Instant::now();
+    let answer = loop {
+        let out = tessera()
+            .args(["predict", "--json", "--coordinator", &url, "--ca"])
+            .arg(&ca)
+            .args(["x1=3.0", "x2=2.5"])
+            .output()
+            .expect("predict");
+        if out.status.success() {
+            break text(&out.stdout);
+        }
+        assert!(
+            text(&out.stderr).contains("no surrogate yet")
+                && started.elapsed() < Duration::from_secs(30),
+            "{}",
+            text(&out.stderr)
+        );
+        std::thread::sleep(Duration::from_millis(500));
+    };
+    let preds: serde_json::Value = serde_json::from_str(&answer).expect("JSON");
+    assert!(
+        preds[0]["value"]["mean"]
+            .as_f64()
+            .is_some_and(f64::is_finite),
+        "{preds}"
+    );
 }
 
 /// The standard health service answers without a token; server reflection

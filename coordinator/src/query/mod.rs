@@ -125,6 +125,17 @@ pub enum QueryError {
     Internal(String),
 }
 
+impl From<crate::fitter::FitError> for QueryError {
+    fn from(e: crate::fitter::FitError) -> Self {
+        use crate::fitter::FitError;
+        match e {
+            FitError::Store(s) => QueryError::Store(s),
+            FitError::DamagedFit { metric, reason } => QueryError::DamagedFit { metric, reason },
+            FitError::Internal(m) => QueryError::Internal(m),
+        }
+    }
+}
+
 /// The parameters with their ranges and units, for messages:
 /// `x1 in [-5, 10] um, x2 in [0, 15]`.
 pub fn describe_params(spec: &Spec) -> String {
