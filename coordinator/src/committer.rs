@@ -135,42 +135,54 @@ fn store_thread(
                 Err(_) => break,
             }
         }
+        // Requests are served in the order they were sent; consecutive
+        // commits share one transaction, committed before any later request
+        // runs (so a `call` sent after a commit sees it).
         let mut commits: Vec<(Vec<Outcome>, CommitReply)> = Vec::new();
         for r in batch {
             match r {
                 Request::Commit { outcomes, reply } => commits.push((outcomes, reply)),
                 Request::InsertPoints { points, reply } => {
+                    commit_group(&mut store, std::mem::take(&mut commits));
                     let res = insert(&mut store, sweep_id, &points, replicates, sweep_seed);
                     let _ = reply.send(res.map_err(|e| e.to_string()));
                 }
-                Request::Call { job } => job(&mut store),
-            }
-        }
-        if commits.is_empty() {
-            continue;
-        }
-        let all: Vec<Outcome> = commits
-            .iter()
-            .flat_map(|(o, _)| o.iter().cloned())
-            .collect();
-        match store.commit_outcomes(&all) {
-            Ok(results) => {
-                let mut it = results.into_iter();
-                for (outcomes, reply) in commits {
-                    let part: Vec<CommitResult> = it.by_ref().take(outcomes.len()).collect();
-                    let _ = reply.send(Ok(part));
+                Request::Call { job } => {
+                    commit_group(&mut store, std::mem::take(&mut commits));
+                    job(&mut store);
                 }
             }
-            Err(e) => {
-                tracing::error!(error = %e, "committing results failed; none acknowledged");
-                let msg = e.to_string();
-                for (_, reply) in commits {
-                    let _ = reply.send(Err(msg.clone()));
-                }
+        }
+        commit_group(&mut store, commits);
+    }
+    tracing::debug!("store thread finished");
+}
+
+/// Commits the outcomes of several requests in one transaction and answers each.
+fn commit_group(store: &mut Store, commits: Vec<(Vec<Outcome>, CommitReply)>) {
+    if commits.is_empty() {
+        return;
+    }
+    let all: Vec<Outcome> = commits
+        .iter()
+        .flat_map(|(o, _)| o.iter().cloned())
+        .collect();
+    match store.commit_outcomes(&all) {
+        Ok(results) => {
+            let mut it = results.into_iter();
+            for (outcomes, reply) in commits {
+                let part: Vec<CommitResult> = it.by_ref().take(outcomes.len()).collect();
+                let _ = reply.send(Ok(part));
+            }
+        }
+        Err(e) => {
+            tracing::error!(error = %e, "committing results failed; none acknowledged");
+            let msg = e.to_string();
+            for (_, reply) in commits {
+                let _ = reply.send(Err(msg.clone()));
             }
         }
     }
-    tracing::debug!("store thread finished");
 }
 
 fn insert(

@@ -350,3 +350,36 @@ fn concurrent_opens_of_a_new_file_both_succeed() {
         );
     }
 }
+
+/// The store thread serves requests in the order they were sent: a call
+/// sent after a commit sees the committed result, even when both wait in
+/// the same batch (the thread is busy while they arrive). Without this,
+/// `Engine::flush` would return before results sent earlier are on disk.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_call_sent_after_a_commit_sees_it() {
+    use tessera_coordinator::committer::StoreHandle;
+    let dir = tempfile::tempdir().expect("tempdir");
+    let (mut store, id) = new_sweep(&dir.path().join("order.db"));
+    store
+        .insert_points(id, &points(1, PointOrigin::Design, 0), 1, 7)
+        .expect("insert");
+    let eval = store.evaluations(id).expect("evals")[0].id;
+    let (handle, _join) = StoreHandle::spawn(store, id, 1, 7).expect("store thread");
+    // Keep the thread busy so the next two requests arrive together.
+    let busy = handle.call(|_| std::thread::sleep(std::time::Duration::from_millis(300)));
+    let h2 = handle.clone();
+    let commit = tokio::spawn(async move { h2.commit(vec![done(eval, "w1", 0.5)]).await });
+    let h3 = handle.clone();
+    let seen = tokio::spawn(async move {
+        // Sent after the commit request (which is queued within 100 ms).
+        tokio::time::sleep(std::time::Duration::from_millis(100)).await;
+        h3.call(move |s| s.evaluations(id).map(|e| e[0].status)).await
+    });
+    busy.await.expect("busy call");
+    let status = seen.await.expect("task").expect("call").expect("read");
+    assert_eq!(status, EvalStatus::Done, "the call ran before the earlier commit");
+    assert_eq!(
+        commit.await.expect("task").expect("commit"),
+        vec![CommitResult::Stored]
+    );
+}
