@@ -11,6 +11,7 @@ use crate::store::{
     CommitResult, EvaluationRecord, NewPoint, Outcome, PointRecord, Store, StoreError,
 };
 use tokio::sync::{mpsc, oneshot};
+use tokio_util::sync::CancellationToken;
 
 /// Most requests folded into one transaction.
 const MAX_GROUP: usize = 256;
@@ -33,6 +34,9 @@ enum Request {
     Call {
         job: Box<dyn FnOnce(&mut Store) + Send>,
     },
+    /// Close the database (SQLite then checkpoints and removes the `-wal`
+    /// and `-shm` files) and end the thread.
+    Close { reply: oneshot::Sender<()> },
 }
 
 /// Handle to the store thread; cheap to clone.
@@ -41,6 +45,9 @@ pub struct StoreHandle {
     /// Requests to the store thread. The thread ends when every handle is
     /// dropped (the channel closes), after finishing what it holds.
     tx: mpsc::Sender<Request>,
+    /// Cancelled when a write finds that another coordinator has taken the
+    /// database: nothing more may be written or handed out.
+    lost: CancellationToken,
 }
 
 impl std::fmt::Debug for StoreHandle {
@@ -70,10 +77,19 @@ impl StoreHandle {
         sweep_seed: u64,
     ) -> std::io::Result<(StoreHandle, std::thread::JoinHandle<()>)> {
         let (tx, rx) = mpsc::channel(1024);
+        let lost = CancellationToken::new();
+        let thread_lost = lost.clone();
         let join = std::thread::Builder::new()
             .name("tessera-store".into())
-            .spawn(move || store_thread(store, rx, sweep_id, replicates, sweep_seed))?;
-        Ok((StoreHandle { tx }, join))
+            .spawn(move || {
+                store_thread(store, rx, sweep_id, replicates, sweep_seed, thread_lost)
+            })?;
+        Ok((StoreHandle { tx, lost }, join))
+    }
+
+    /// Cancelled once a write found the database taken by another coordinator.
+    pub fn lost(&self) -> &CancellationToken {
+        &self.lost
     }
 
     /// Commits results; returns after they are durable.
@@ -103,6 +119,15 @@ impl StoreHandle {
             .map_err(CommitError::Store)
     }
 
+    /// Closes the database after every request sent before this one and
+    /// ends the store thread; later requests fail with [`CommitError::Stopped`].
+    pub async fn close(&self) {
+        let (reply, rx) = oneshot::channel();
+        if self.tx.send(Request::Close { reply }).await.is_ok() {
+            let _ = rx.await;
+        }
+    }
+
     /// Runs `f` on the store thread and returns its answer.
     pub async fn call<T: Send + 'static>(
         &self,
@@ -126,8 +151,10 @@ fn store_thread(
     sweep_id: i64,
     replicates: u32,
     sweep_seed: u64,
+    lost: CancellationToken,
 ) {
-    while let Some(first) = rx.blocking_recv() {
+    let mut closed: Option<oneshot::Sender<()>> = None;
+    'serve: while let Some(first) = rx.blocking_recv() {
         let mut batch = vec![first];
         while batch.len() < MAX_GROUP {
             match rx.try_recv() {
@@ -143,23 +170,41 @@ fn store_thread(
             match r {
                 Request::Commit { outcomes, reply } => commits.push((outcomes, reply)),
                 Request::InsertPoints { points, reply } => {
-                    commit_group(&mut store, std::mem::take(&mut commits));
+                    commit_group(&mut store, std::mem::take(&mut commits), &lost);
                     let res = insert(&mut store, sweep_id, &points, replicates, sweep_seed);
+                    if matches!(res, Err(StoreError::Lost { .. })) {
+                        lost.cancel();
+                    }
                     let _ = reply.send(res.map_err(|e| e.to_string()));
                 }
                 Request::Call { job } => {
-                    commit_group(&mut store, std::mem::take(&mut commits));
+                    commit_group(&mut store, std::mem::take(&mut commits), &lost);
                     job(&mut store);
+                }
+                Request::Close { reply } => {
+                    commit_group(&mut store, std::mem::take(&mut commits), &lost);
+                    closed = Some(reply);
+                    break 'serve;
                 }
             }
         }
-        commit_group(&mut store, commits);
+        commit_group(&mut store, commits, &lost);
+    }
+    // Requests still queued after a close are dropped: their callers see
+    // the thread stopped.
+    drop(store);
+    if let Some(reply) = closed {
+        let _ = reply.send(());
     }
     tracing::debug!("store thread finished");
 }
 
 /// Commits the outcomes of several requests in one transaction and answers each.
-fn commit_group(store: &mut Store, commits: Vec<(Vec<Outcome>, CommitReply)>) {
+fn commit_group(
+    store: &mut Store,
+    commits: Vec<(Vec<Outcome>, CommitReply)>,
+    lost: &CancellationToken,
+) {
     if commits.is_empty() {
         return;
     }
@@ -176,6 +221,9 @@ fn commit_group(store: &mut Store, commits: Vec<(Vec<Outcome>, CommitReply)>) {
             }
         }
         Err(e) => {
+            if matches!(e, StoreError::Lost { .. }) {
+                lost.cancel();
+            }
             tracing::error!(error = %e, "committing results failed; none acknowledged");
             let msg = e.to_string();
             for (_, reply) in commits {

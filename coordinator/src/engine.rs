@@ -111,6 +111,16 @@ impl std::fmt::Debug for Engine {
     }
 }
 
+/// This machine's host name (for the database's holder row and worker names).
+pub fn host_name() -> String {
+    std::fs::read_to_string("/etc/hostname")
+        .ok()
+        .map(|s| s.trim().to_string())
+        .filter(|s| !s.is_empty())
+        .or_else(|| std::env::var("HOSTNAME").ok())
+        .unwrap_or_else(|| "localhost".to_string())
+}
+
 /// Locks a mutex, recovering the data if a thread panicked while holding it
 /// (the scheduler's state stays consistent between calls).
 fn lock<T>(m: &Mutex<T>) -> MutexGuard<'_, T> {
@@ -124,6 +134,8 @@ impl Engine {
     pub fn open(opts: OpenOptions) -> Result<Arc<Engine>, OpenError> {
         let given = spec::parse(&opts.spec_text, &opts.spec_file)?;
         let mut store = Store::open(&opts.db)?;
+        let nonce = format!("{:x}", unix_ms() ^ (u64::from(std::process::id()) << 40));
+        store.acquire(&nonce, &host_name(), std::process::id())?;
         let db_name = opts.db.display().to_string();
         let (sweep, spec_text, spec) = match store.sweep()? {
             Some(sw) => {
@@ -187,7 +199,6 @@ impl Engine {
                 Vec::new()
             }
         };
-        let nonce = format!("{:x}", unix_ms() ^ (u64::from(std::process::id()) << 40));
         let lease_context = LeaseContext {
             model: spec.model.name.clone(),
             fixed_json: serde_json::to_string(&spec.model.fixed)
@@ -256,7 +267,7 @@ impl Engine {
         free: u32,
     ) -> Result<(Vec<Grant>, bool), EngineError> {
         let mut s = lock(&self.sched);
-        if self.draining.load(Ordering::SeqCst) {
+        if self.draining.load(Ordering::SeqCst) || self.store.lost().is_cancelled() {
             s.renew(worker_id, &[], Instant::now())?;
             return Ok((Vec::new(), false));
         }
@@ -420,8 +431,7 @@ impl Engine {
     }
 
     /// Keeps the metric surrogates current until `stop` is cancelled: when
-    /// new results have arrived, fits the stale metrics on a blocking thread
-    /// (never holding the scheduler), stores them, and serves them to `Predict`.
+    /// new results have arrived, refits the stale metrics ([`Engine::refit_once`]).
     pub async fn run_refits(self: Arc<Self>, stop: CancellationToken, every: Duration) {
         let mut seen = u64::MAX;
         loop {
@@ -434,56 +444,110 @@ impl Engine {
                 continue;
             }
             seen = done;
-            let sweep_id = self.sweep_id;
-            let plan_spec = self.spec.clone();
-            let plan = match self
-                .store
-                .call(move |s| fitter::stale_jobs(s, sweep_id, &plan_spec))
-                .await
-            {
-                Ok(Ok(p)) => p,
+            tokio::select! {
+                _ = stop.cancelled() => break,
+                r = self.refit_once() => if r.is_err() { break },
+            }
+        }
+    }
+
+    /// Fits the metrics with new results on a blocking thread (never holding
+    /// the scheduler; reads and writes go through the store thread), stores
+    /// them and serves them to `Predict`. `Err` when the store thread is gone.
+    pub async fn refit_once(&self) -> Result<(), CommitError> {
+        let sweep_id = self.sweep_id;
+        let plan_spec = self.spec.clone();
+        let plan = match self
+            .store
+            .call(move |s| fitter::stale_jobs(s, sweep_id, &plan_spec))
+            .await?
+        {
+            Ok(p) => p,
+            Err(e) => {
+                tracing::warn!(error = %e, "cannot read results for refitting");
+                return Ok(());
+            }
+        };
+        if plan.todo.is_empty() {
+            return Ok(());
+        }
+        let todo = plan.todo.clone();
+        let results: u32 = todo.iter().map(|j| j.n_results).max().unwrap_or(0);
+        let fresh = match tokio::task::spawn_blocking(move || fitter::run_jobs(&todo)).await {
+            Ok(f) => f,
+            Err(e) => {
+                tracing::error!(error = %e, "refit task failed");
+                return Ok(());
+            }
+        };
+        let to_save = fresh.clone();
+        match self
+            .store
+            .call(move |s| fitter::save_fits(s, sweep_id, &to_save))
+            .await?
+        {
+            Ok(()) => {}
+            Err(e) => tracing::warn!(error = %e, "cannot store surrogates"),
+        }
+        let fresh: Vec<MetricFit> = fresh
+            .iter()
+            .filter_map(|f| fitter::as_stored(f).ok())
+            .collect();
+        let merged = fitter::merge(plan, &fresh);
+        tracing::info!(metrics = merged.len(), results, "surrogates refitted");
+        *lock(&self.fits) = merged;
+        Ok(())
+    }
+
+    /// Cancelled when another coordinator has taken the database: this one
+    /// must stop at once (it hands out nothing more and stores nothing more).
+    pub fn lost(&self) -> &CancellationToken {
+        self.store.lost()
+    }
+
+    /// Writes the holder's heartbeat every `HOLDER_BEAT` until `stop` is
+    /// cancelled or the database is lost.
+    pub async fn run_heartbeat(self: Arc<Self>, stop: CancellationToken) {
+        let mut tick = tokio::time::interval(crate::store::HOLDER_BEAT);
+        tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+        loop {
+            tokio::select! {
+                _ = stop.cancelled() => break,
+                _ = tick.tick() => {}
+            }
+            match self.store.call(|s| s.beat()).await {
+                Ok(Ok(())) => {}
+                Ok(Err(e @ StoreError::Lost { .. })) => {
+                    tracing::error!(error = %e, "stopping");
+                    self.drain();
+                    self.store.lost().cancel();
+                    break;
+                }
                 Ok(Err(e)) => {
-                    tracing::warn!(error = %e, "cannot read results for refitting");
-                    continue;
+                    tracing::warn!(error = %e, "cannot write the heartbeat; trying again")
                 }
                 Err(_) => break,
-            };
-            if plan.todo.is_empty() {
-                continue;
             }
-            let todo = plan.todo.clone();
-            let fresh = tokio::select! {
-                _ = stop.cancelled() => break,
-                r = tokio::task::spawn_blocking(move || fitter::run_jobs(&todo)) => match r {
-                    Ok(f) => f,
-                    Err(e) => {
-                        tracing::error!(error = %e, "refit task failed");
-                        continue;
-                    }
-                },
-            };
-            let to_save = fresh.clone();
-            match self
-                .store
-                .call(move |s| fitter::save_fits(s, sweep_id, &to_save))
-                .await
-            {
-                Ok(Ok(())) => {}
-                Ok(Err(e)) => tracing::warn!(error = %e, "cannot store surrogates"),
-                Err(_) => break,
-            }
-            let fresh: Vec<MetricFit> = fresh
-                .iter()
-                .filter_map(|f| fitter::as_stored(f).ok())
-                .collect();
-            let merged = fitter::merge(plan, &fresh);
-            tracing::info!(
-                metrics = merged.len(),
-                results = done,
-                "surrogates refitted"
-            );
-            *lock(&self.fits) = merged;
         }
+    }
+
+    /// Gives the database up at a clean shutdown, after everything is
+    /// written, so the next coordinator may start at once.
+    pub async fn release(&self) {
+        match self.store.call(|s| s.release()).await {
+            Ok(Ok(())) => {}
+            Ok(Err(e)) => {
+                tracing::warn!(error = %e, "cannot release the database; the next coordinator waits for the heartbeat to go stale")
+            }
+            Err(_) => {}
+        }
+    }
+
+    /// Closes the database at the end of a shutdown (after [`Engine::flush`]
+    /// and [`Engine::release`]): SQLite then folds its write-ahead log into
+    /// the file and removes the `-wal` and `-shm` files.
+    pub async fn close(&self) {
+        self.store.close().await;
     }
 
     /// Waits until the store thread has finished every request sent before

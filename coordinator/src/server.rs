@@ -48,6 +48,9 @@ pub enum ServeError {
     /// Reflection setup failed.
     #[error("gRPC reflection: {0}")]
     Reflection(#[from] tonic_reflection::server::Error),
+    /// Another coordinator took the database; this one stopped.
+    #[error("another coordinator took over the database; this one stopped handing out work and stored nothing more (see the log for who holds it)")]
+    Lost,
 }
 
 /// Checks the bearer token of each request in constant time.
@@ -116,6 +119,8 @@ pub async fn serve(
     let planner = tokio::spawn(engine.clone().run_planner(stop.clone()));
     // Background surrogate refits for `Predict`; ends when `stop` is cancelled.
     let refits = tokio::spawn(engine.clone().run_refits(stop.clone(), opts.refit_every));
+    // The holder's heartbeat; ends when `stop` is cancelled or the database is lost.
+    let heartbeat = tokio::spawn(engine.clone().run_heartbeat(stop.clone()));
 
     let (health, health_service) = tonic_health::server::health_reporter();
     health
@@ -132,14 +137,24 @@ pub async fn serve(
         .build_v1()?;
     let check = TokenCheck::new(opts.token.as_deref());
 
-    let mut builder = Server::builder();
+    // Dead peers are noticed (HTTP/2 pings unanswered, TCP keepalive) and
+    // their connections closed; a call may not take longer than a minute.
+    let mut builder = Server::builder()
+        .http2_keepalive_interval(Some(std::time::Duration::from_secs(30)))
+        .http2_keepalive_timeout(Some(std::time::Duration::from_secs(20)))
+        .tcp_keepalive(Some(std::time::Duration::from_secs(60)))
+        .timeout(std::time::Duration::from_secs(60));
     if let Some((cert, key)) = &opts.tls {
         builder =
             builder.tls_config(ServerTlsConfig::new().identity(Identity::from_pem(cert, key)))?;
     }
     let drain_engine = engine.clone();
+    let lost = engine.lost().clone();
     let shutdown = async move {
-        shutdown.await;
+        tokio::select! {
+            _ = shutdown => {}
+            _ = lost.cancelled() => {}
+        }
         tracing::info!("shutting down: no new leases; finishing calls under way");
         drain_engine.drain();
     };
@@ -156,7 +171,17 @@ pub async fn serve(
     stop.cancel();
     let _ = planner.await;
     let _ = refits.await;
+    let _ = heartbeat.await;
     engine.flush().await;
+    if engine.lost().is_cancelled() {
+        result?;
+        return Err(ServeError::Lost);
+    }
+    // Store current surrogates, so queries on the file need not fit.
+    let _ = engine.refit_once().await;
+    engine.flush().await;
+    engine.release().await;
+    engine.close().await;
     result?;
     Ok(())
 }

@@ -318,7 +318,7 @@ fn refits_only_when_results_change_and_answers_stay_the_same() {
 
     // Reopening the file reads the same fit back.
     drop(again);
-    let reopened = Store::open_existing(&s.db).expect("reopen");
+    let reopened = Store::open_read_only(&s.db).expect("reopen");
     let stored = fitter::stored_fits(&reopened, s.id, &s.spec).expect("stored");
     assert_eq!(query::predict(&stored, &s.spec, &q).expect("predict"), a);
 

@@ -68,7 +68,7 @@ fn reopening_keeps_sweep_points_and_results() {
             .expect("commit");
         assert_eq!(r, [CommitResult::Stored]);
     }
-    let store = Store::open_existing(&path).expect("reopen");
+    let store = Store::open_read_only(&path).expect("reopen");
     let sweep = store.sweep().expect("read").expect("a sweep");
     assert_eq!(
         (sweep.name.as_str(), sweep.spec_text.as_str(), sweep.seed),
@@ -303,7 +303,7 @@ fn files_that_are_not_sweep_databases_are_refused_untouched() {
     assert!(matches!(err, StoreError::Foreign { .. }), "{err}");
 
     let missing = dir.path().join("missing.db");
-    let err = Store::open_existing(&missing).expect_err("missing");
+    let err = Store::open_read_only(&missing).expect_err("missing");
     assert!(
         err.to_string().starts_with("no sweep database at "),
         "{err}"
@@ -343,7 +343,7 @@ fn concurrent_opens_of_a_new_file_both_succeed() {
             let opened = h.join().expect("thread");
             assert!(opened.is_ok(), "round {round}: {:?}", opened.err());
         }
-        let store = Store::open_existing(&path).expect("reopen");
+        let store = Store::open_read_only(&path).expect("reopen");
         assert_eq!(
             store.schema_version().expect("version"),
             tessera_coordinator::store::SCHEMA_VERSION
@@ -373,11 +373,16 @@ async fn a_call_sent_after_a_commit_sees_it() {
     let seen = tokio::spawn(async move {
         // Sent after the commit request (which is queued within 100 ms).
         tokio::time::sleep(std::time::Duration::from_millis(100)).await;
-        h3.call(move |s| s.evaluations(id).map(|e| e[0].status)).await
+        h3.call(move |s| s.evaluations(id).map(|e| e[0].status))
+            .await
     });
     busy.await.expect("busy call");
     let status = seen.await.expect("task").expect("call").expect("read");
-    assert_eq!(status, EvalStatus::Done, "the call ran before the earlier commit");
+    assert_eq!(
+        status,
+        EvalStatus::Done,
+        "the call ran before the earlier commit"
+    );
     assert_eq!(
         commit.await.expect("task").expect("commit"),
         vec![CommitResult::Stored]

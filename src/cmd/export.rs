@@ -54,7 +54,7 @@ pub struct ExportArgs {
 
 /// Runs `tessera export`.
 pub fn run(args: ExportArgs) -> anyhow::Result<ExitCode> {
-    let store = Store::open_existing(&args.db)?;
+    let store = Store::open_read_only(&args.db)?;
     let db = args.db.display().to_string();
     let sweep = store
         .sweep()?

@@ -34,7 +34,7 @@ pub struct StatusArgs {
 
 /// Reads the status of the sweep stored in `db`.
 pub fn from_db(db: &std::path::Path) -> anyhow::Result<(SweepStatus, Spec)> {
-    let store = Store::open_existing(db)?;
+    let store = Store::open_read_only(db)?;
     let sweep = store
         .sweep()?
         .with_context(|| format!("{} holds no sweep yet", db.display()))?;

@@ -155,7 +155,7 @@ fn plot(t: &Trend, out: &Path) -> anyhow::Result<()> {
 /// Runs `tessera trend`.
 pub fn run(args: TrendArgs) -> anyhow::Result<ExitCode> {
     let (spec, fits) = query::load_fits(&args.db)?;
-    let store = Store::open_existing(&args.db)?;
+    let store = Store::open_read_only(&args.db)?;
     let sweep = store
         .sweep()?
         .with_context(|| format!("{} holds no sweep yet", args.db.display()))?;

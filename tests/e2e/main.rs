@@ -10,6 +10,7 @@ mod external_model;
 mod harness;
 mod init_check_export;
 mod local_run;
+mod one_writer;
 mod predict_check_fit;
 mod simulate;
 mod tls_health;

@@ -167,13 +167,24 @@ pub fn open_sweep(store: &Store) -> Result<(i64, Spec), QueryError> {
     Ok((sweep.id, spec))
 }
 
-/// Opens an existing database, refits the surrogates that are stale and
-/// returns the sweep file and the current fits (used by `tessera predict`
-/// and `tessera check-fit`).
+/// Opens an existing database read-only and returns the sweep file and the
+/// current fits (used by `tessera predict`, `check-fit` and `trend`): the
+/// stored fits that saw every result, and fits made now, in memory, for
+/// metrics with newer results. Nothing is written: a running coordinator
+/// stores its own fits, and a finished one stores them when it stops.
 pub fn load_fits(db: &Path) -> Result<(Spec, Vec<crate::fitter::MetricFit>), QueryError> {
-    let mut store = Store::open_existing(db)?;
+    let store = Store::open_read_only(db)?;
     let (sweep_id, spec) = open_sweep(&store)?;
-    let fits = crate::fitter::refit_if_stale(&mut store, sweep_id, &spec)?;
+    let plan = crate::fitter::stale_jobs(&store, sweep_id, &spec).map_err(|e| match e {
+        crate::fitter::FitError::Store(s) => QueryError::Store(s.at(db)),
+        other => other.into(),
+    })?;
+    drop(store);
+    let fresh: Vec<crate::fitter::MetricFit> = crate::fitter::run_jobs(&plan.todo)
+        .iter()
+        .filter_map(|f| crate::fitter::as_stored(f).ok())
+        .collect();
+    let fits = crate::fitter::merge(plan, &fresh);
     if fits.is_empty() {
         return Err(QueryError::NoFits {
             reason: format!(

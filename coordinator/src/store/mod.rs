@@ -28,11 +28,47 @@ const BUSY_TIMEOUT: Duration = Duration::from_secs(10);
 /// What can go wrong with the sweep database.
 #[derive(Debug, thiserror::Error)]
 pub enum StoreError {
-    /// `open_existing` on a path with no file.
+    /// A query on a path with no file.
     #[error("no sweep database at {path}; start the sweep first (tessera run or tessera serve) or check the path")]
     Missing {
         /// The path given.
         path: PathBuf,
+    },
+    /// A directory was given as the database.
+    #[error("{path} is a directory, not a sweep database; give the .db file (tessera run writes SWEEP.db next to SWEEP.toml)")]
+    IsDirectory {
+        /// The path given.
+        path: PathBuf,
+    },
+    /// An empty file was given to a query.
+    #[error("{path} is an empty file, not a sweep database; it was left untouched (was the sweep started with another --db?)")]
+    Empty {
+        /// The path given.
+        path: PathBuf,
+    },
+    /// A writer cannot write the database (read-only file, directory or leftover files).
+    #[error("cannot store results in {path}: {reason}. Nothing was run")]
+    NotWritable {
+        /// The database path.
+        path: PathBuf,
+        /// What is not writable and what to do.
+        reason: String,
+    },
+    /// Another coordinator holds the database.
+    #[error("{path} is in use by another coordinator: {holder}. One coordinator serves a database at a time; stop that one first, or give this one another --db")]
+    Held {
+        /// The database path.
+        path: PathBuf,
+        /// Who holds it, in words (host, process, since when, last heard).
+        holder: String,
+    },
+    /// This coordinator no longer holds the database (another took it over).
+    #[error("this coordinator lost {path} to another coordinator ({holder}); it stops handing out work and stores nothing more")]
+    Lost {
+        /// The database path.
+        path: PathBuf,
+        /// Who holds it now, in words.
+        holder: String,
     },
     /// The file exists but is not an SQLite database.
     #[error("{path} is not a tessera sweep database (not an SQLite file); it was left untouched")]
@@ -81,7 +117,68 @@ pub enum StoreError {
     /// separate `source`), so error chains do not print it twice.
     #[error("sweep database error: {0}")]
     Sqlite(rusqlite::Error),
+    /// An SQLite error or a damaged row, with the file it happened in.
+    #[error("sweep database {path}: {message}")]
+    At {
+        /// The database path.
+        path: PathBuf,
+        /// What went wrong.
+        message: String,
+    },
 }
+
+impl StoreError {
+    /// Names the file in errors that do not already name it.
+    pub fn at(self, path: &Path) -> StoreError {
+        match self {
+            StoreError::Sqlite(e) => StoreError::At {
+                path: path.to_path_buf(),
+                message: e.to_string(),
+            },
+            StoreError::Damaged(m) => StoreError::At {
+                path: path.to_path_buf(),
+                message: format!("damaged row: {m}"),
+            },
+            other => other,
+        }
+    }
+}
+
+/// Who holds a database: the coordinator allowed to write it.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct Holder {
+    /// Random id of the holding coordinator (new at every start).
+    pub nonce: String,
+    /// Host name it runs on.
+    pub host: String,
+    /// Its process id.
+    pub pid: u32,
+    /// When it took the database (ms since the Unix epoch).
+    pub since_unix_ms: u64,
+    /// Its last heartbeat (ms since the Unix epoch).
+    pub beat_unix_ms: u64,
+}
+
+impl Holder {
+    /// "host lab-3, process 4242, since 2026-12-02 14:01:07 UTC, last heard 2 s ago".
+    pub fn describe(&self, now_ms: u64) -> String {
+        let since = humantime::format_rfc3339_seconds(
+            UNIX_EPOCH + Duration::from_millis(self.since_unix_ms),
+        );
+        format!(
+            "host {}, process {}, since {since}, last heard {} s ago",
+            self.host,
+            self.pid,
+            now_ms.saturating_sub(self.beat_unix_ms) / 1000
+        )
+    }
+}
+
+/// A holder not heard from for this long has stopped (crashed, killed or
+/// stalled) and may be replaced. Holders beat every [`HOLDER_BEAT`].
+pub const HOLDER_STALE: Duration = Duration::from_secs(15);
+/// How often the holder writes its heartbeat (commits count as beats too).
+pub const HOLDER_BEAT: Duration = Duration::from_secs(3);
 
 impl From<rusqlite::Error> for StoreError {
     fn from(e: rusqlite::Error) -> Self {
@@ -315,6 +412,9 @@ pub struct FitRecord {
 pub struct Store {
     conn: Connection,
     path: PathBuf,
+    /// Our nonce once this store holds the database: every write then
+    /// checks, in its own transaction, that we still do.
+    holder: Option<String>,
 }
 
 fn now_ms() -> i64 {
@@ -339,25 +439,151 @@ fn is_not_a_database(e: &rusqlite::Error) -> bool {
     )
 }
 
+/// `path` with `suffix` appended to its file name (`sweep.db-wal`).
+fn sibling(path: &Path, suffix: &str) -> PathBuf {
+    let mut name = path.as_os_str().to_os_string();
+    name.push(suffix);
+    PathBuf::from(name)
+}
+
+/// An SQLite `file:` URI for `path` with a query string, percent-encoding
+/// the characters that URIs reserve.
+fn file_uri(path: &Path, query: &str) -> String {
+    let abs = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf());
+    let mut out = String::from("file:");
+    for b in abs.as_os_str().as_encoded_bytes() {
+        match *b {
+            b'A'..=b'Z' | b'a'..=b'z' | b'0'..=b'9' | b'/' | b'-' | b'_' | b'.' | b'~' => {
+                out.push(char::from(*b))
+            }
+            other => out.push_str(&format!("%{other:02X}")),
+        }
+    }
+    out.push('?');
+    out.push_str(query);
+    out
+}
+
+/// Whether this process may write `p` (the file's permission bits and, for
+/// root, nothing at all: root may write anything but a read-only mount).
+fn writable(p: &Path) -> bool {
+    rustix::fs::access(p, rustix::fs::Access::WRITE_OK).is_ok()
+}
+
+/// A writer needs to write the database file, its directory (SQLite creates
+/// `-wal` and `-shm` files there) and any `-wal`/`-shm` file already there.
+fn check_writable(path: &Path) -> Result<(), StoreError> {
+    let refuse = |reason: String| {
+        Err(StoreError::NotWritable {
+            path: path.to_path_buf(),
+            reason,
+        })
+    };
+    if path.is_dir() {
+        return Err(StoreError::IsDirectory {
+            path: path.to_path_buf(),
+        });
+    }
+    let dir = match path.parent() {
+        Some(d) if !d.as_os_str().is_empty() => d.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    if !dir.is_dir() {
+        return refuse(format!(
+            "its folder {} does not exist; create it first",
+            dir.display()
+        ));
+    }
+    if !writable(&dir) {
+        return refuse(format!(
+            "its folder {} is not writable by this user; SQLite must create files next to the database there. Use another --db, or copy the database somewhere writable to read it",
+            dir.display()
+        ));
+    }
+    if path.exists() && !writable(path) {
+        return refuse("the file is read-only for this user".into());
+    }
+    for suffix in ["-wal", "-shm"] {
+        let f = sibling(path, suffix);
+        if f.exists() && !writable(&f) {
+            return refuse(format!(
+                "{} is not writable by this user (left by another user's process?); remove it when no tessera process uses the database",
+                f.display()
+            ));
+        }
+    }
+    Ok(())
+}
+
 impl Store {
-    /// Opens the database at `path`, creating it if missing and migrating an
-    /// older schema.
+    /// Opens the database at `path` for writing, creating it if missing and
+    /// migrating an older schema. Refuses at once, before anything runs, a
+    /// file or directory this process cannot write (including `-wal` and
+    /// `-shm` files left by another user).
     pub fn open(path: &Path) -> Result<Store, StoreError> {
+        check_writable(path)?;
         let flags = OpenFlags::SQLITE_OPEN_READ_WRITE
             | OpenFlags::SQLITE_OPEN_CREATE
             | OpenFlags::SQLITE_OPEN_NO_MUTEX;
-        Self::open_with(path, flags)
+        let store = Self::open_with(path, flags)?;
+        if store.conn.is_readonly(rusqlite::MAIN_DB).unwrap_or(true) {
+            return Err(StoreError::NotWritable {
+                path: path.to_path_buf(),
+                reason: "SQLite opened it read-only (check the permissions of the file and its directory)".into(),
+            });
+        }
+        Ok(store)
     }
 
-    /// Opens an existing database; refuses a missing file instead of creating one.
-    pub fn open_existing(path: &Path) -> Result<Store, StoreError> {
-        if !path.is_file() {
-            return Err(StoreError::Missing {
+    /// Opens an existing database for reading only: never creates,
+    /// migrates or changes a file, and leaves no file behind. Works on
+    /// read-only files and directories. While a writer has the file open
+    /// (its `-wal` file exists) it reads through SQLite's read-only mode and
+    /// sees every committed result; otherwise it opens the file as
+    /// immutable, which takes no locks and creates no `-wal`/`-shm` files.
+    pub fn open_read_only(path: &Path) -> Result<Store, StoreError> {
+        let meta = std::fs::metadata(path).map_err(|_| StoreError::Missing {
+            path: path.to_path_buf(),
+        })?;
+        if meta.is_dir() {
+            return Err(StoreError::IsDirectory {
                 path: path.to_path_buf(),
             });
         }
-        let flags = OpenFlags::SQLITE_OPEN_READ_WRITE | OpenFlags::SQLITE_OPEN_NO_MUTEX;
-        Self::open_with(path, flags)
+        if meta.len() == 0 {
+            return Err(StoreError::Empty {
+                path: path.to_path_buf(),
+            });
+        }
+        let wal = sibling(path, "-wal");
+        let immutable = !wal.exists();
+        let uri = file_uri(path, if immutable { "immutable=1" } else { "mode=ro" });
+        let flags = OpenFlags::SQLITE_OPEN_READ_ONLY
+            | OpenFlags::SQLITE_OPEN_URI
+            | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        let conn = Connection::open_with_flags(&uri, flags).map_err(|e| StoreError::At {
+            path: path.to_path_buf(),
+            message: e.to_string(),
+        })?;
+        conn.busy_timeout(BUSY_TIMEOUT)
+            .map_err(|e| StoreError::from(e).at(path))?;
+        let mut store = Store {
+            conn,
+            path: path.to_path_buf(),
+            holder: None,
+        };
+        match store.check_identity() {
+            Ok(true) => Err(StoreError::Foreign {
+                path: path.to_path_buf(),
+            }),
+            Ok(false) => Ok(store),
+            Err(StoreError::Sqlite(ref e)) if is_not_a_database(e) => {
+                Err(StoreError::NotADatabase {
+                    path: path.to_path_buf(),
+                })
+            }
+            Err(e) => Err(e.at(path)),
+        }
     }
 
     fn open_with(path: &Path, flags: OpenFlags) -> Result<Store, StoreError> {
@@ -386,6 +612,7 @@ impl Store {
         let mut store = Store {
             conn,
             path: path.to_path_buf(),
+            holder: None,
         };
         store.check_identity().map_err(|e| match e {
             StoreError::Sqlite(ref s) if is_not_a_database(s) => StoreError::NotADatabase {
@@ -393,6 +620,7 @@ impl Store {
             },
             other => other,
         })?;
+
         let mode: String =
             store
                 .conn
@@ -404,13 +632,15 @@ impl Store {
             });
         }
         store.conn.pragma_update(None, "synchronous", "FULL")?;
-        store.conn.pragma_update(None, "foreign_keys", "ON")?;
+        // Migrations rebuild tables, which foreign keys would forbid.
         store.migrate()?;
+        store.conn.pragma_update(None, "foreign_keys", "ON")?;
         Ok(store)
     }
 
-    /// Refuses files that are not tessera databases, or are from a newer schema.
-    fn check_identity(&mut self) -> Result<(), StoreError> {
+    /// Refuses files that are not tessera databases, or are from a newer
+    /// schema. Returns true for a fresh (empty) database.
+    fn check_identity(&mut self) -> Result<bool, StoreError> {
         // One read transaction: the three reads see the same state even if
         // another process is creating the schema right now.
         let tx = self.conn.transaction()?;
@@ -442,7 +672,7 @@ impl Store {
                 ours: env!("CARGO_PKG_VERSION"),
             });
         }
-        Ok(())
+        Ok(fresh)
     }
 
     /// Brings the schema to [`SCHEMA_VERSION`], one migration per transaction.
@@ -484,6 +714,87 @@ impl Store {
         Ok(())
     }
 
+    /// Takes the database for the coordinator `nonce` on `host`, process
+    /// `pid`, unless another coordinator holds it and is alive: heard from
+    /// within [`HOLDER_STALE`] and, on this host, its process still exists.
+    /// A stopped holder (killed, crashed) is replaced without manual clean-up.
+    /// From now on every write of this store checks that it still holds the
+    /// database.
+    pub fn acquire(&mut self, nonce: &str, host: &str, pid: u32) -> Result<(), StoreError> {
+        let now = now_ms();
+        let tx = self
+            .conn
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+        let current = read_holder(&tx)?;
+        if let Some(h) = &current {
+            let heard = Duration::from_millis((now as u64).saturating_sub(h.beat_unix_ms));
+            let alive_here = h.host != host || process_exists(h.pid);
+            if h.nonce != nonce && heard < HOLDER_STALE && alive_here {
+                return Err(StoreError::Held {
+                    path: self.path.clone(),
+                    holder: h.describe(now as u64),
+                });
+            }
+            if h.nonce != nonce {
+                tracing::warn!(db = %self.path.display(), previous = %h.describe(now as u64), "taking over the database from a coordinator that stopped");
+            }
+        }
+        tx.execute(
+            "INSERT INTO holder (id, nonce, host, pid, since_unix_ms, beat_unix_ms)
+             VALUES (1, ?1, ?2, ?3, ?4, ?4)
+             ON CONFLICT(id) DO UPDATE SET nonce = excluded.nonce, host = excluded.host,
+                 pid = excluded.pid, since_unix_ms = excluded.since_unix_ms,
+                 beat_unix_ms = excluded.beat_unix_ms",
+            params![nonce, host, pid, now],
+        )?;
+        tx.commit()?;
+        self.holder = Some(nonce.to_string());
+        Ok(())
+    }
+
+    /// Writes this holder's heartbeat; [`StoreError::Lost`] if another
+    /// coordinator has taken the database meanwhile.
+    pub fn beat(&mut self) -> Result<(), StoreError> {
+        let tx = self
+            .conn
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+        check_holder(self.holder.as_deref(), &self.path, &tx)?;
+        tx.commit()?;
+        Ok(())
+    }
+
+    /// Gives the database up (at a clean shutdown), so the next coordinator
+    /// may start at once.
+    pub fn release(&mut self) -> Result<(), StoreError> {
+        if let Some(nonce) = self.holder.take() {
+            self.conn.execute(
+                "DELETE FROM holder WHERE id = 1 AND nonce = ?1",
+                params![nonce],
+            )?;
+        }
+        Ok(())
+    }
+
+    /// The coordinator holding this database, if any.
+    pub fn holder(&self) -> Result<Option<Holder>, StoreError> {
+        if !self.has_table("holder")? {
+            return Ok(None);
+        }
+        read_holder(&self.conn)
+    }
+
+    fn has_table(&self, name: &str) -> Result<bool, StoreError> {
+        Ok(self
+            .conn
+            .query_row(
+                "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?1",
+                params![name],
+                |_| Ok(()),
+            )
+            .optional()?
+            .is_some())
+    }
+
     /// The file this store writes.
     pub fn path(&self) -> &Path {
         &self.path
@@ -505,6 +816,10 @@ impl Store {
 
     /// The sweep in this database, if one was created.
     pub fn sweep(&self) -> Result<Option<SweepRecord>, StoreError> {
+        self.sweep_unnamed().map_err(|e| e.at(&self.path))
+    }
+
+    fn sweep_unnamed(&self) -> Result<Option<SweepRecord>, StoreError> {
         Ok(self
             .conn
             .query_row(
@@ -569,6 +884,7 @@ impl Store {
         sweep_seed: u64,
     ) -> Result<Vec<PointRecord>, StoreError> {
         let tx = self.conn.transaction()?;
+        check_holder(self.holder.as_deref(), &self.path, &tx)?;
         let next: i64 = tx.query_row(
             "SELECT coalesce(max(idx) + 1, 0) FROM points WHERE sweep_id = ?1",
             params![sweep_id],
@@ -622,6 +938,10 @@ impl Store {
 
     /// All points of the sweep, by index.
     pub fn points(&self, sweep_id: i64) -> Result<Vec<PointRecord>, StoreError> {
+        self.points_unnamed(sweep_id).map_err(|e| e.at(&self.path))
+    }
+
+    fn points_unnamed(&self, sweep_id: i64) -> Result<Vec<PointRecord>, StoreError> {
         let mut stmt = self.conn.prepare(
             "SELECT id, idx, values_json, origin, batch FROM points
              WHERE sweep_id = ?1 ORDER BY idx",
@@ -654,6 +974,11 @@ impl Store {
 
     /// All evaluations of the sweep, by point index and replicate.
     pub fn evaluations(&self, sweep_id: i64) -> Result<Vec<EvaluationRecord>, StoreError> {
+        self.evaluations_unnamed(sweep_id)
+            .map_err(|e| e.at(&self.path))
+    }
+
+    fn evaluations_unnamed(&self, sweep_id: i64) -> Result<Vec<EvaluationRecord>, StoreError> {
         let mut stmt = self.conn.prepare(
             "SELECT e.id, e.point_id, p.idx, e.replicate, e.seed, e.status, e.attempts,
                     e.worker, e.started_unix_ms, e.ended_unix_ms, e.metrics_json,
@@ -682,6 +1007,7 @@ impl Store {
         outcomes: &[Outcome],
     ) -> Result<Vec<CommitResult>, StoreError> {
         let tx = self.conn.transaction()?;
+        check_holder(self.holder.as_deref(), &self.path, &tx)?;
         let mut out = Vec::with_capacity(outcomes.len());
         {
             let mut done = tx.prepare(
@@ -740,7 +1066,9 @@ impl Store {
 
     /// Stores a surrogate fit.
     pub fn save_fit(&mut self, sweep_id: i64, fit: &NewFit) -> Result<(), StoreError> {
-        self.conn.execute(
+        let tx = self.conn.transaction()?;
+        check_holder(self.holder.as_deref(), &self.path, &tx)?;
+        tx.execute(
             "INSERT INTO fits (sweep_id, metric, n_results, kernel, model_json, diagnostics_json, created_unix_ms)
              VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
             params![
@@ -753,11 +1081,17 @@ impl Store {
                 now_ms()
             ],
         )?;
+        tx.commit()?;
         Ok(())
     }
 
     /// The most recent fit of each metric, by metric name.
     pub fn latest_fits(&self, sweep_id: i64) -> Result<Vec<FitRecord>, StoreError> {
+        self.latest_fits_unnamed(sweep_id)
+            .map_err(|e| e.at(&self.path))
+    }
+
+    fn latest_fits_unnamed(&self, sweep_id: i64) -> Result<Vec<FitRecord>, StoreError> {
         let mut stmt = self.conn.prepare(
             "SELECT id, metric, n_results, kernel, model_json, diagnostics_json, created_unix_ms
              FROM fits WHERE id IN (SELECT max(id) FROM fits WHERE sweep_id = ?1 GROUP BY metric)
@@ -862,4 +1196,62 @@ impl RawEvaluation {
             stderr_tail: self.stderr_tail,
         })
     }
+}
+
+fn read_holder(conn: &Connection) -> Result<Option<Holder>, StoreError> {
+    Ok(conn
+        .query_row(
+            "SELECT nonce, host, pid, since_unix_ms, beat_unix_ms FROM holder WHERE id = 1",
+            [],
+            |r| {
+                Ok(Holder {
+                    nonce: r.get(0)?,
+                    host: r.get(1)?,
+                    pid: r.get(2)?,
+                    since_unix_ms: from_sql_u64(r.get(3)?),
+                    beat_unix_ms: from_sql_u64(r.get(4)?),
+                })
+            },
+        )
+        .optional()?)
+}
+
+/// Whether a process with this id exists on this machine.
+fn process_exists(pid: u32) -> bool {
+    let Some(pid) = i32::try_from(pid)
+        .ok()
+        .and_then(rustix::process::Pid::from_raw)
+    else {
+        return false;
+    };
+    match rustix::process::test_kill_process(pid) {
+        Ok(()) => true,
+        // It exists but belongs to another user.
+        Err(e) => e == rustix::io::Errno::PERM,
+    }
+}
+
+/// Inside a write transaction: refreshes our heartbeat, or fails with
+/// [`StoreError::Lost`] when we no longer hold the database.
+fn check_holder(
+    holder: Option<&str>,
+    path: &Path,
+    tx: &rusqlite::Transaction<'_>,
+) -> Result<(), StoreError> {
+    let Some(nonce) = holder else {
+        return Ok(());
+    };
+    let n = tx.execute(
+        "UPDATE holder SET beat_unix_ms = ?1 WHERE id = 1 AND nonce = ?2",
+        params![now_ms(), nonce],
+    )?;
+    if n == 1 {
+        return Ok(());
+    }
+    let holder =
+        read_holder(tx)?.map_or_else(|| "nobody".to_string(), |h| h.describe(now_ms() as u64));
+    Err(StoreError::Lost {
+        path: path.to_path_buf(),
+        holder,
+    })
 }

@@ -10,7 +10,7 @@
 pub(crate) const APPLICATION_ID: i32 = 0x5453_5241;
 
 /// Migrations in order; `MIGRATIONS.len()` is the schema version this build writes.
-pub(crate) const MIGRATIONS: &[&str] = &[V1];
+pub(crate) const MIGRATIONS: &[&str] = &[V1, V2];
 
 /// The schema version this build writes and reads.
 pub const SCHEMA_VERSION: i64 = MIGRATIONS.len() as i64;
@@ -66,4 +66,38 @@ CREATE TABLE fits (
     created_unix_ms  INTEGER NOT NULL
 );
 CREATE INDEX fits_by_metric ON fits(sweep_id, metric, id);
+";
+
+/// Version 2: the `holder` row (which coordinator may write, with its
+/// heartbeat), and the points table rebuilt so that the planner can store
+/// why it proposed a point (strategy, acquisition value, predicted mean and
+/// sd, and the surrogate that made it); point origins are checked by the
+/// code, not by a CHECK constraint, so new strategies need no rebuild.
+const V2: &str = "
+CREATE TABLE holder (
+    id              INTEGER PRIMARY KEY CHECK (id = 1),
+    nonce           TEXT NOT NULL,
+    host            TEXT NOT NULL,
+    pid             INTEGER NOT NULL,
+    since_unix_ms   INTEGER NOT NULL,
+    beat_unix_ms    INTEGER NOT NULL
+);
+CREATE TABLE points_v2 (
+    id              INTEGER PRIMARY KEY,
+    sweep_id        INTEGER NOT NULL REFERENCES sweeps(id),
+    idx             INTEGER NOT NULL,
+    values_json     TEXT NOT NULL,
+    origin          TEXT NOT NULL,
+    batch           INTEGER NOT NULL,
+    created_unix_ms INTEGER NOT NULL,
+    acquisition     REAL,
+    predicted_mean  REAL,
+    predicted_sd    REAL,
+    surrogate       TEXT,
+    UNIQUE (sweep_id, idx)
+);
+INSERT INTO points_v2 (id, sweep_id, idx, values_json, origin, batch, created_unix_ms)
+    SELECT id, sweep_id, idx, values_json, origin, batch, created_unix_ms FROM points;
+DROP TABLE points;
+ALTER TABLE points_v2 RENAME TO points;
 ";
