@@ -36,7 +36,7 @@ async fn one(slots: u32, workers: u32, evaluations: u32) -> (f64, Duration) {
         times: LeaseTimes::default(),
     })
     .expect("open");
-    let runner = Arc::new(Runners::new(RunnerConfig::default()));
+    let runner = Arc::new(Runners::new(RunnerConfig::default()).expect("no commands"));
     let start = Instant::now();
     let mut cluster = LocalCluster::start(
         engine.clone(),

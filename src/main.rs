@@ -66,6 +66,9 @@ enum Command {
     Trend(cmd::trend::TrendArgs),
     /// Write every evaluation in a sweep database as CSV or JSON lines.
     Export(cmd::export::ExportArgs),
+    /// Run one external simulator under supervision (used by workers).
+    #[command(hide = true)]
+    Guard(cmd::guard::GuardArgs),
 }
 
 fn main() -> ExitCode {
@@ -93,6 +96,7 @@ fn main() -> ExitCode {
         Command::CheckFit(a) => cmd::check_fit::run(a),
         Command::Trend(a) => cmd::trend::run(a),
         Command::Export(a) => cmd::export::run(a),
+        Command::Guard(a) => cmd::guard::run(a),
     };
     match outcome {
         Ok(code) => code,

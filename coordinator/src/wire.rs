@@ -41,9 +41,12 @@ pub fn report_of(r: pb::RunResult) -> Result<Report, Status> {
         )));
     }
     let outcome = match r.outcome {
-        Some(pb::run_result::Outcome::Metrics(m)) => {
-            ReportOutcome::Metrics(m.values.into_iter().collect())
-        }
+        Some(pb::run_result::Outcome::Metrics(m)) => ReportOutcome::Metrics(
+            m.bits
+                .into_iter()
+                .map(|(k, b)| (k, f64::from_bits(b)))
+                .collect(),
+        ),
         Some(pb::run_result::Outcome::Failure(f)) => ReportOutcome::Failure {
             kind: f.kind,
             reason: f.reason,

@@ -20,4 +20,4 @@ pub const FILE_DESCRIPTOR_SET: &[u8] =
 
 /// Protocol version spoken by this build. A worker and a coordinator with
 /// different versions refuse each other at `Join`.
-pub const PROTOCOL_VERSION: u32 = 1;
+pub const PROTOCOL_VERSION: u32 = 2;

@@ -6,6 +6,7 @@ use anyhow::Context;
 pub mod check;
 pub mod check_fit;
 pub mod export;
+pub mod guard;
 pub mod init;
 pub mod net;
 pub mod predict;

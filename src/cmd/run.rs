@@ -156,8 +156,9 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
     let runners = Arc::new(Runners::new(RunnerConfig {
         commands,
         keep_workdirs: args.keep_workdirs,
+        guard: super::guard::words(),
         ..RunnerConfig::default()
-    }));
+    })?);
     let rt = tokio::runtime::Runtime::new().context("cannot start the async runtime")?;
     let outcome = rt.block_on(async move {
         // One in-process worker per slot; each ends when the sweep is

@@ -203,7 +203,8 @@ pub fn run(args: SimulateArgs) -> anyhow::Result<ExitCode> {
         cfg.workdir_root = root.clone();
     }
     let kept_under = (args.keep_workdirs && is_external).then(|| cfg.workdir_root.clone());
-    let runners = Runners::new(cfg);
+    cfg.guard = super::guard::words();
+    let runners = Runners::new(cfg)?;
     let mut req = RunRequest::new(args.model.clone());
     req.params = values.numbers;
     req.fixed = values

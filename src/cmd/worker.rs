@@ -109,7 +109,8 @@ pub fn run(args: WorkerArgs) -> anyhow::Result<ExitCode> {
     if let Some(w) = &args.workdir {
         cfg.workdir_root = w.clone();
     }
-    let runners = Arc::new(Runners::new(cfg));
+    cfg.guard = super::guard::words();
+    let runners = Arc::new(Runners::new(cfg)?);
     let opts = WorkerOptions {
         dial,
         name: name.clone(),

@@ -95,6 +95,15 @@ fn coordinator_killed_and_restarted_loses_and_doubles_nothing() {
     );
     assert_eq!(field(&st, "done"), 28);
     assert_each_once_all_ok(&db, 28);
+    // Results delivered after the restart (the new coordinator never saw
+    // the workers' old ids) still carry the workers' names.
+    for r in export_rows(&db) {
+        let w = r.get("worker").map(String::as_str).unwrap_or("");
+        assert!(
+            w == "alpha" || w == "beta",
+            "result recorded for worker {w:?}"
+        );
+    }
     let (mut a, mut b) = (a, b);
     for w in [&mut a, &mut b] {
         let exit = w.wait_exit(Duration::from_secs(30));
@@ -238,7 +247,9 @@ fn a_result_sent_twice_is_stored_once() {
             ended_unix_ms: 2,
             attempt: 1,
             outcome: Some(pb::run_result::Outcome::Metrics(pb::Metrics {
-                values: [("value".to_string(), v)].into_iter().collect(),
+                bits: [("value".to_string(), f64::to_bits(v))]
+                    .into_iter()
+                    .collect(),
             })),
         };
         for v in [1.5, 1.5, 99.0] {
@@ -422,5 +433,56 @@ fn running_coordinator_answers_predict_like_the_database() {
     assert!(
         (sd(&a) - sd(&b)).abs() < 1e-9 * (1.0 + sd(&b)),
         "{a} vs {b}"
+    );
+}
+
+/// A token shorter than 16 characters is refused with the reason.
+#[test]
+fn a_short_token_is_refused_with_the_reason() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let spec = branin_spec(dir, 2, 1, 0);
+    std::fs::write(dir.join("short.token"), "abc\n").expect("token");
+    let out = tessera()
+        .arg("serve")
+        .arg(&spec)
+        .args(["--db", "s.db", "--token-file", "short.token"])
+        .current_dir(dir)
+        .output()
+        .expect("serve");
+    assert_eq!(out.status.code(), Some(1));
+    let err = text(&out.stderr);
+    assert!(
+        err.contains("at least 16") && err.contains("guessed"),
+        "{err}"
+    );
+    assert!(!dir.join("s.db").exists());
+}
+
+/// A worker with nothing running stops at once on SIGTERM, not after its grace period.
+#[test]
+fn an_idle_worker_stops_at_once_on_sigterm() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let spec = branin_spec(dir, 2, 1, 0);
+    let port = free_port();
+    let coord = serve(dir, &spec, port, &[]);
+    let mut w = worker(dir, port, "idle", 1, &["--grace", "60s", "--stay"]);
+    wait_for(
+        &dir.join("sweep.db"),
+        Duration::from_secs(60),
+        "the sweep to finish",
+        &[&coord, &w],
+        |st| st.get("finished").and_then(|v| v.as_bool()) == Some(true),
+    );
+    std::thread::sleep(Duration::from_millis(500));
+    let started = std::time::Instant::now();
+    w.term();
+    let exit = w.wait_exit(Duration::from_secs(20)).expect("exits");
+    assert!(exit.success(), "{}", w.output());
+    assert!(
+        started.elapsed() < Duration::from_secs(5),
+        "took {:?}",
+        started.elapsed()
     );
 }

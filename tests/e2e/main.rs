@@ -7,10 +7,12 @@
 mod deploy_files;
 mod distributed;
 mod external_model;
+mod external_safety;
 mod harness;
 mod init_check_export;
 mod local_run;
 mod one_writer;
+mod partition;
 mod predict_check_fit;
 mod simulate;
 mod tls_health;

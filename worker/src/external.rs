@@ -8,7 +8,13 @@
 //!   command words; also `{seed}`, `{replicate}`, `{workdir}`, `{metrics}`,
 //!   `{launch_dir}` and `TESSERA_SEED`, `TESSERA_REPLICATE`, `TESSERA_WORKDIR`,
 //!   `TESSERA_METRICS`, `TESSERA_LAUNCH_DIR`, `TESSERA_MODEL`,
-//!   `TESSERA_POINT_ID`, `TESSERA_EVALUATION_ID`;
+//!   `TESSERA_POINT_ID`, `TESSERA_EVALUATION_ID`. Whole numbers are written
+//!   without a decimal point (`6`, not `6.0`) in all three;
+//! - values are data, never code: a placeholder becomes part of one argument
+//!   word, passed to the program without a shell; a command whose words hand
+//!   code to an interpreter (`sh -c SCRIPT`, `python3 -c CODE`, `ssh HOST
+//!   CMD`) may not hold placeholders there ([`ExternalCommand::new`] refuses
+//!   it): such scripts read the environment variables instead;
 //! - relative paths in the command words that name existing files are made
 //!   absolute against the directory tessera was started in;
 //! - the simulator reports metrics as a JSON object, either in the file
@@ -18,7 +24,11 @@
 //!   configured root, removed afterwards unless the operator keeps them;
 //! - the command runs in its own process group; on timeout or cancel the
 //!   whole group is killed, and when the command exits anything it left
-//!   running in its group is killed too.
+//!   running in its group is killed too. What it printed is read when it
+//!   exits, even if a detached descendant still holds its output open. With
+//!   a guard ([`RunnerConfig`](crate::runner::RunnerConfig)`::guard`), descendants that
+//!   left the group are killed too, and so is everything when the worker
+//!   itself is killed (see [`crate::guard`]).
 
 use std::collections::BTreeMap;
 use std::io::ErrorKind;
@@ -39,9 +49,12 @@ use tessera_models::outcome::{FailureKind, Metrics, RunFailure};
 pub const STDERR_TAIL_BYTES: usize = 4096;
 /// How much of the end of stdout is kept to find the metrics line.
 const STDOUT_TAIL_BYTES: usize = 1 << 20;
-/// How long to wait for stdout/stderr to close once the process group is gone
-/// (a process that left the group with `setsid` could hold them open).
-const PIPE_GRACE: Duration = Duration::from_secs(5);
+/// How long to wait for stdout/stderr to close once the simulator has
+/// exited and its group is killed; after that, what was read is used (a
+/// process that left the group with `setsid` can hold the pipes open).
+const PIPE_GRACE: Duration = Duration::from_millis(500);
+/// How long a guard may take to clean up after it is asked to stop.
+const GUARD_GRACE: Duration = Duration::from_secs(3);
 
 /// One operator-configured command serving one model name.
 #[derive(Clone, Debug)]
@@ -51,6 +64,166 @@ pub struct ExternalCommand {
     workdir_root: PathBuf,
     keep_workdirs: bool,
     launch_dir: PathBuf,
+    /// Words put before the command (a supervising process; see `crate::guard`).
+    guard: Vec<String>,
+}
+
+/// Programs that run a word of their command line as code, the options
+/// that introduce it, and the options that take a value (skipped when
+/// looking for the code option).
+const CODE_OPTIONS: &[(&str, &[&str], &[&str])] = &[
+    ("sh", &["-c"], &["-o", "+o"]),
+    (
+        "bash",
+        &["-c"],
+        &["-o", "+o", "-O", "+O", "--rcfile", "--init-file"],
+    ),
+    ("dash", &["-c"], &["-o", "+o"]),
+    ("zsh", &["-c"], &["-o", "+o"]),
+    ("ksh", &["-c"], &["-o", "+o"]),
+    ("mksh", &["-c"], &["-o", "+o"]),
+    ("ash", &["-c"], &["-o", "+o"]),
+    ("fish", &["-c", "--command"], &[]),
+    ("python", &["-c"], &["-W", "-X"]),
+    ("perl", &["-e", "-E"], &["-I", "-M"]),
+    ("ruby", &["-e"], &["-I", "-r"]),
+    (
+        "node",
+        &["-e", "--eval", "-p", "--print"],
+        &["-r", "--require"],
+    ),
+    ("Rscript", &["-e"], &[]),
+    ("julia", &["-e", "--eval"], &[]),
+];
+
+/// Programs whose remaining words are all code, or are joined into a
+/// command for another shell (on another host, or as another user).
+const ALL_CODE: &[&str] = &[
+    "awk", "gawk", "mawk", "ssh", "su", "sudo", "srun", "xargs", "eval",
+];
+
+/// Programs that run the rest of the command line as a new command: their
+/// options that take a value, and how many plain words they take before the
+/// command (`timeout DURATION`, `taskset MASK`, `chrt PRIORITY`).
+const WRAPPERS: &[(&str, &[&str], usize)] = &[
+    ("env", &["-u", "--unset", "-C", "--chdir", "-S"], 0),
+    ("nice", &["-n", "--adjustment"], 0),
+    ("nohup", &[], 0),
+    ("setsid", &[], 0),
+    ("stdbuf", &["-i", "-o", "-e"], 0),
+    ("time", &["-f", "-o"], 0),
+    ("timeout", &["-s", "-k", "--signal", "--kill-after"], 1),
+    ("ionice", &["-c", "-n", "-p"], 0),
+    ("taskset", &[], 1),
+    ("chrt", &[], 1),
+    ("exec", &["-a"], 0),
+];
+
+/// Placeholders the worker fills in besides the inputs.
+const BUILT_IN_FIELDS: &[&str] = &["seed", "replicate", "workdir", "metrics", "launch_dir"];
+
+/// The `{name}` placeholders in a word (names of letters, digits, `_`; a
+/// shell's own `${name}` is not one).
+fn placeholders(word: &str) -> Vec<String> {
+    let mut out = Vec::new();
+    let bytes = word.as_bytes();
+    let mut at = 0;
+    while let Some(open) = word[at..].find('{').map(|o| o + at) {
+        let after = &word[open + 1..];
+        if let Some(close) = after.find('}') {
+            let name = &after[..close];
+            let preceded_by_dollar = open > 0 && bytes[open - 1] == b'$';
+            if !name.is_empty()
+                && !preceded_by_dollar
+                && name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_')
+            {
+                out.push(name.to_string());
+            }
+        }
+        at = open + 1;
+    }
+    out
+}
+
+/// A program word's name without directories and version digits
+/// (`/usr/bin/python3.11` -> `python`).
+fn program_name(word: &str) -> String {
+    let file = Path::new(word)
+        .file_name()
+        .map_or_else(|| word.to_string(), |f| f.to_string_lossy().into_owned());
+    file.trim_end_matches(|c: char| c.is_ascii_digit() || c == '.')
+        .to_string()
+}
+
+/// The indices of the words that a program of `words` runs as code (or
+/// hands to another shell), where placeholders are refused.
+fn code_words(words: &[String]) -> Vec<usize> {
+    let mut i = 0;
+    // Wrappers run the rest as a new command line.
+    while let Some((name, valued, plain)) = words
+        .get(i)
+        .and_then(|w| WRAPPERS.iter().find(|(n, _, _)| *n == program_name(w)))
+    {
+        i += 1;
+        while let Some(w) = words.get(i) {
+            if valued.contains(&w.as_str()) {
+                i += 2;
+            } else if w.starts_with('-') || (*name == "env" && w.contains('=')) {
+                i += 1;
+            } else {
+                break;
+            }
+        }
+        i += plain;
+    }
+    if i >= words.len() {
+        return Vec::new();
+    }
+    let prog = program_name(&words[i]);
+    if ALL_CODE.contains(&prog.as_str()) {
+        return (i + 1..words.len()).collect();
+    }
+    let Some((_, code_opts, valued)) = CODE_OPTIONS.iter().find(|(p, _, _)| *p == prog) else {
+        return Vec::new();
+    };
+    let mut j = i + 1;
+    while j < words.len() {
+        let w = words[j].as_str();
+        if code_opts.contains(&w)
+            || (w.starts_with('-')
+                && !w.starts_with("--")
+                && code_opts
+                    .iter()
+                    .any(|o| o.len() == 2 && w.len() > 2 && w.ends_with(&o[1..])))
+        {
+            // The code; words after it reach the script as $0, $1, ...: data.
+            return if j + 1 < words.len() {
+                vec![j + 1]
+            } else {
+                Vec::new()
+            };
+        }
+        if valued.contains(&w) {
+            j += 2;
+            continue;
+        }
+        if !w.starts_with('-') && !w.starts_with('+') {
+            // A script file: its arguments are data.
+            break;
+        }
+        j += 1;
+    }
+    Vec::new()
+}
+
+/// Why an operator's command cannot be used.
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+#[error("command for model {model:?}: {message}")]
+pub struct CommandError {
+    /// The model name the command serves.
+    pub model: String,
+    /// What is wrong and what to do instead.
+    pub message: String,
 }
 
 /// Kills a process group when dropped (the run future was dropped, or the
@@ -88,23 +261,54 @@ impl ExternalCommand {
     /// The run starts in its own directory, so relative paths in the words
     /// are resolved against `launch_dir` (the directory the operator started
     /// tessera in) now: see [`resolve_relative_words`].
+    ///
+    /// Refuses placeholders in a word that a program runs as code (the
+    /// script of `sh -c`, the code of `python3 -c`, everything after
+    /// `ssh HOST`): a value pasted there could run as a command. Such
+    /// scripts read `$TESSERA_PARAM_<NAME>` (quoted) instead.
     pub fn new(
         name: String,
         words: Vec<String>,
         workdir_root: PathBuf,
         keep_workdirs: bool,
         launch_dir: PathBuf,
-    ) -> Self {
+        guard: Vec<String>,
+    ) -> Result<Self, CommandError> {
+        if words.first().is_none_or(|w| w.trim().is_empty()) {
+            return Err(CommandError {
+                model: name,
+                message: "the command is empty; give the program and its arguments".into(),
+            });
+        }
+        for i in code_words(&words) {
+            let found = placeholders(&words[i]);
+            if let Some(p) = found.first() {
+                let var = if BUILT_IN_FIELDS.contains(&p.as_str()) {
+                    format!("\"$TESSERA_{}\"", p.to_ascii_uppercase())
+                } else {
+                    format!("\"${}\"", env_name(p))
+                };
+                return Err(CommandError {
+                    model: name,
+                    message: format!(
+                        "{{{p}}} appears in {:?}, which {} runs as code: a value put there could run as a command. \
+                         Use the environment variable instead, quoted: {var} (every input is also in TESSERA_PARAM_<NAME>)",
+                        words[i], words[0]
+                    ),
+                });
+            }
+        }
         let words = resolve_relative_words(&words, &launch_dir);
         // The simulator runs elsewhere: paths handed to it must be absolute.
         let workdir_root = launch_dir.join(workdir_root);
-        ExternalCommand {
+        Ok(ExternalCommand {
             name,
             words,
             workdir_root,
             keep_workdirs,
             launch_dir,
-        }
+            guard,
+        })
     }
 
     /// The model name this command serves.
@@ -178,10 +382,23 @@ impl ExternalCommand {
         fields.insert("workdir".into(), workdir.display().to_string());
         fields.insert("metrics".into(), metrics_path.display().to_string());
         fields.insert("launch_dir".into(), self.launch_dir.display().to_string());
-        let words: Vec<String> = self.words.iter().map(|w| fill(w, &fields)).collect();
+        let code = code_words(&self.words);
+        let words: Vec<String> = self
+            .words
+            .iter()
+            .enumerate()
+            .map(|(i, w)| {
+                if code.contains(&i) {
+                    w.clone()
+                } else {
+                    fill(w, &fields)
+                }
+            })
+            .collect();
+        let argv: Vec<&String> = self.guard.iter().chain(words.iter()).collect();
 
-        let mut cmd = tokio::process::Command::new(&words[0]);
-        cmd.args(&words[1..])
+        let mut cmd = tokio::process::Command::new(argv[0]);
+        cmd.args(&argv[1..])
             .current_dir(workdir)
             .stdin(Stdio::piped())
             .stdout(Stdio::piped())
@@ -201,7 +418,7 @@ impl ExternalCommand {
         }
         let stdin_json = serde_json::json!({
             "model": req.model,
-            "inputs": inputs,
+            "inputs": inputs_json(inputs),
             "seed": req.seed,
             "replicate": req.replicate,
             "point_id": req.point_id,
@@ -231,14 +448,16 @@ impl ExternalCommand {
         });
         // Drain stdout and stderr concurrently so a chatty simulator never
         // blocks on a full pipe; each ends at end-of-file.
+        let stdout_buf = Tail::new(STDOUT_TAIL_BYTES);
+        let stderr_buf = Tail::new(STDERR_TAIL_BYTES);
         let stdout_task = child
             .stdout
             .take()
-            .map(|s| tokio::spawn(read_tail(s, STDOUT_TAIL_BYTES)));
+            .map(|s| tokio::spawn(read_tail(s, stdout_buf.clone())));
         let stderr_task = child
             .stderr
             .take()
-            .map(|s| tokio::spawn(read_tail(s, STDERR_TAIL_BYTES)));
+            .map(|s| tokio::spawn(read_tail(s, stderr_buf.clone())));
 
         let timeout = async {
             match req.timeout {
@@ -260,7 +479,15 @@ impl ExternalCommand {
             t = timeout => Ending::TimedOut(t),
             () = cancel.cancelled() => Ending::Cancelled,
         };
-        // Whatever happened, nothing of this run may keep running.
+        // Whatever happened, nothing of this run may keep running. A guard
+        // is first asked to stop (it kills the run's detached descendants
+        // too), then the group is killed.
+        if !matches!(ending, Ending::Exited(_)) && !self.guard.is_empty() {
+            if let Some(pid) = group.pgid {
+                let _ = rustix::process::kill_process(pid, rustix::process::Signal::TERM);
+                let _ = tokio::time::timeout(GUARD_GRACE, child.wait()).await;
+            }
+        }
         group.kill();
         if !matches!(ending, Ending::Exited(_)) {
             // The group kill covers the child; this covers a failed group kill.
@@ -270,8 +497,10 @@ impl ExternalCommand {
         if let Some(t) = stdin_task {
             t.abort();
         }
-        let stdout = collect(stdout_task).await;
-        let stderr_bytes = collect(stderr_task).await;
+        // Wait briefly for end of output; a detached descendant may hold the
+        // pipes open, so after that what was read so far is used.
+        let stdout = collect(stdout_task, &stdout_buf).await;
+        let stderr_bytes = collect(stderr_task, &stderr_buf).await;
         let stderr_tail = tail_text(&stderr_bytes, STDERR_TAIL_BYTES);
         let fail = |kind, reason: String| RunFailure {
             kind,
@@ -302,6 +531,26 @@ impl ExternalCommand {
             Ending::Exited(s) => s,
         };
         if !status.success() {
+            let guard_said = String::from_utf8_lossy(&stderr_bytes)
+                .lines()
+                .find(|l| l.starts_with(crate::guard::CANNOT_START))
+                .map(str::to_string);
+            if let (false, Some(line), Some(126 | 127)) =
+                (self.guard.is_empty(), guard_said, status.code())
+            {
+                let e = std::io::Error::new(
+                    if status.code() == Some(127) {
+                        ErrorKind::NotFound
+                    } else {
+                        ErrorKind::PermissionDenied
+                    },
+                    line,
+                );
+                return Err(RunFailure {
+                    stderr_tail: stderr_tail.clone(),
+                    ..spawn_failure(&words[0], &e)
+                });
+            }
             return Err(fail(FailureKind::Exit, describe_exit(&words[0], status)));
         }
         let (source, text) = match std::fs::read_to_string(&metrics_path) {
@@ -401,8 +650,9 @@ pub fn env_name(name: &str) -> String {
 }
 
 /// How a value is written into an environment variable or a command word:
-/// numbers in plain or exponent notation that every language parses, strings
-/// as they are, anything else as JSON text.
+/// numbers in plain or exponent notation that every language parses (whole
+/// numbers without a decimal point), strings as they are, anything else as
+/// JSON text.
 fn value_text(v: &Value) -> String {
     match v {
         Value::String(s) => s.clone(),
@@ -414,7 +664,38 @@ fn value_text(v: &Value) -> String {
     }
 }
 
-/// Shortest round-trip decimal; exponent notation for very large or small.
+/// Largest whole number written as an integer: beyond 2^53 not every
+/// whole double is exactly an integer in every language.
+const MAX_EXACT_WHOLE: f64 = 9_007_199_254_740_992.0;
+
+/// A number as JSON: whole numbers as integers (`6`, like the environment
+/// variables and placeholders), others as the shortest exact decimal.
+fn number_json(x: f64) -> Value {
+    if x.fract() == 0.0 && x.abs() <= MAX_EXACT_WHOLE {
+        Value::from(x as i64)
+    } else {
+        serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
+    }
+}
+
+/// The inputs for the stdin JSON, whole numbers written as integers.
+fn inputs_json(inputs: &BTreeMap<String, Value>) -> Value {
+    Value::Object(
+        inputs
+            .iter()
+            .map(|(k, v)| {
+                let v = match v {
+                    Value::Number(n) if n.is_f64() => n.as_f64().map_or(Value::Null, number_json),
+                    other => other.clone(),
+                };
+                (k.clone(), v)
+            })
+            .collect(),
+    )
+}
+
+/// Shortest round-trip decimal; exponent notation for very large or small;
+/// whole numbers without a decimal point.
 pub fn format_number(x: f64) -> String {
     let a = x.abs();
     if a == 0.0 || (1e-6..1e15).contains(&a) {
@@ -492,40 +773,61 @@ fn signal_name(sig: i32) -> Option<&'static str> {
     })
 }
 
-/// Reads `r` to its end, keeping only the last `cap` bytes.
-async fn read_tail<R: AsyncRead + Unpin>(mut r: R, cap: usize) -> Vec<u8> {
-    let mut buf = Vec::new();
+/// The last bytes read from a pipe, shared between the reading task and the
+/// run, so that what was read is available even if the pipe never closes.
+#[derive(Clone, Debug)]
+struct Tail {
+    cap: usize,
+    /// Locked briefly by the reader per chunk and once by the run at the end.
+    buf: std::sync::Arc<std::sync::Mutex<Vec<u8>>>,
+}
+
+impl Tail {
+    fn new(cap: usize) -> Self {
+        Tail {
+            cap,
+            buf: std::sync::Arc::new(std::sync::Mutex::new(Vec::new())),
+        }
+    }
+
+    fn push(&self, chunk: &[u8]) {
+        let mut b = self.buf.lock().unwrap_or_else(|p| p.into_inner());
+        b.extend_from_slice(chunk);
+        if b.len() > 2 * self.cap {
+            let cut = b.len() - self.cap;
+            b.drain(..cut);
+        }
+    }
+
+    fn take(&self) -> Vec<u8> {
+        let mut b = std::mem::take(&mut *self.buf.lock().unwrap_or_else(|p| p.into_inner()));
+        if b.len() > self.cap {
+            let cut = b.len() - self.cap;
+            b.drain(..cut);
+        }
+        b
+    }
+}
+
+/// Reads `r` to its end into `tail`.
+async fn read_tail<R: AsyncRead + Unpin>(mut r: R, tail: Tail) {
     let mut chunk = vec![0u8; 8192];
     loop {
         match r.read(&mut chunk).await {
             Ok(0) | Err(_) => break,
-            Ok(n) => {
-                buf.extend_from_slice(&chunk[..n]);
-                if buf.len() > 2 * cap {
-                    buf.drain(..buf.len() - cap);
-                }
-            }
+            Ok(n) => tail.push(&chunk[..n]),
         }
     }
-    if buf.len() > cap {
-        buf.drain(..buf.len() - cap);
-    }
-    buf
 }
 
-/// The bytes a reader task collected; empty if it did not finish in time.
-async fn collect(task: Option<JoinHandle<Vec<u8>>>) -> Vec<u8> {
-    let Some(mut task) = task else {
-        return Vec::new();
-    };
-    match tokio::time::timeout(PIPE_GRACE, &mut task).await {
-        Ok(Ok(bytes)) => bytes,
-        Ok(Err(_)) => Vec::new(),
-        Err(_) => {
+/// What a reader collected: after end of output, or after [`PIPE_GRACE`].
+async fn collect(task: Option<JoinHandle<()>>, tail: &Tail) -> Vec<u8> {
+    if let Some(mut task) = task {
+        if tokio::time::timeout(PIPE_GRACE, &mut task).await.is_err() {
             task.abort();
-            Vec::new()
         }
     }
+    tail.take()
 }
 
 /// The last `cap` bytes as text, cut at a character boundary.
@@ -536,33 +838,54 @@ fn tail_text(bytes: &[u8], cap: usize) -> String {
     text.trim_start_matches('\u{FFFD}').to_string()
 }
 
-/// Parses a metrics object: every value must be a finite number. `NaN`,
-/// `Infinity` and `-Infinity` (which Python's `json` writes although JSON has
-/// no such tokens) and `null` are reported as non-finite.
+/// A JSON object's entries in order, duplicates kept (serde_json's own map
+/// would keep only the last of two equal keys).
+struct Entries(Vec<(String, Value)>);
+
+impl<'de> serde::Deserialize<'de> for Entries {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        struct Visit;
+        impl<'de> serde::de::Visitor<'de> for Visit {
+            type Value = Entries;
+            fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+                f.write_str("a JSON object of metrics")
+            }
+            fn visit_map<A: serde::de::MapAccess<'de>>(
+                self,
+                mut m: A,
+            ) -> Result<Entries, A::Error> {
+                let mut out = Vec::new();
+                while let Some((k, v)) = m.next_entry::<String, Value>()? {
+                    out.push((k, v));
+                }
+                Ok(Entries(out))
+            }
+        }
+        d.deserialize_map(Visit)
+    }
+}
+
+/// Parses a metrics object: every value must be a finite number, every
+/// name given once. `NaN`, `Infinity` and `-Infinity` (which Python's `json`
+/// writes although JSON has no such tokens) and `null` are reported as
+/// non-finite. Numbers are read to the nearest double, so a value comes back
+/// out of the store bit for bit.
 pub fn parse_metrics(text: &str) -> Result<Metrics, (FailureKind, String)> {
     let cleaned = non_finite_to_null(text.trim());
-    let value: Value = serde_json::from_str(&cleaned).map_err(|e| {
+    let entries: Entries = serde_json::from_str(&cleaned).map_err(|e| {
         (
             FailureKind::NoMetrics,
-            format!("not a JSON object ({e}): {:?}", shorten(text.trim(), 200)),
-        )
-    })?;
-    let Value::Object(map) = value else {
-        return Err((
-            FailureKind::NoMetrics,
             format!(
-                "not a JSON object of metrics: {:?}",
+                "not a JSON object of metrics ({e}): {:?}",
                 shorten(text.trim(), 200)
             ),
-        ));
-    };
+        )
+    })?;
     let mut metrics = Metrics::new();
-    for (k, v) in map {
-        match v {
+    for (k, v) in entries.0 {
+        let x = match v {
             Value::Number(n) => match n.as_f64() {
-                Some(x) if x.is_finite() => {
-                    metrics.insert(k, x);
-                }
+                Some(x) if x.is_finite() => x,
                 _ => {
                     return Err((
                         FailureKind::NonFinite,
@@ -582,6 +905,12 @@ pub fn parse_metrics(text: &str) -> Result<Metrics, (FailureKind, String)> {
                     format!("metric {k:?} is {other}; metrics must be numbers"),
                 ))
             }
+        };
+        if metrics.insert(k.clone(), x).is_some() {
+            return Err((
+                FailureKind::NoMetrics,
+                format!("metric {k:?} is given twice; give each metric once"),
+            ));
         }
     }
     Ok(metrics)
@@ -663,6 +992,71 @@ mod tests {
         assert_eq!(fill("a{{seed}}", &f), "a{7}");
     }
 
+    fn w(words: &[&str]) -> Vec<String> {
+        words.iter().map(|s| s.to_string()).collect()
+    }
+
+    #[test]
+    fn code_words_are_found_behind_shells_interpreters_and_wrappers() {
+        assert_eq!(
+            code_words(&w(&["sh", "-c", "echo {x}", "arg0", "{x}"])),
+            [2]
+        );
+        assert_eq!(code_words(&w(&["/bin/bash", "-ec", "run {x}"])), [2]);
+        assert_eq!(
+            code_words(&w(&["bash", "-o", "pipefail", "-c", "a | b"])),
+            [4]
+        );
+        assert_eq!(code_words(&w(&["python3.11", "-c", "print({x})"])), [2]);
+        assert_eq!(code_words(&w(&["env", "A=1", "-i", "sh", "-c", "x"])), [5]);
+        assert_eq!(
+            code_words(&w(&["timeout", "60", "nice", "-n", "5", "sh", "-c", "x"])),
+            [7]
+        );
+        assert_eq!(code_words(&w(&["ssh", "node7", "./sim", "{x}"])), [1, 2, 3]);
+        assert_eq!(code_words(&w(&["awk", "{print $1}", "{x}"])), [1, 2]);
+        // Scripts and programs get their arguments as data.
+        assert!(code_words(&w(&["python3", "sim.py", "-c", "{x}"])).is_empty());
+        assert!(code_words(&w(&["sh", "run.sh", "{x}"])).is_empty());
+        assert!(code_words(&w(&["./mysim", "--mode", "{x}"])).is_empty());
+    }
+
+    #[test]
+    fn placeholders_in_code_are_refused_with_the_variable_to_use() {
+        let new = |words: &[&str]| {
+            ExternalCommand::new(
+                "sim".into(),
+                w(words),
+                PathBuf::from("/tmp"),
+                false,
+                PathBuf::from("/tmp"),
+                Vec::new(),
+            )
+        };
+        let e = new(&["sh", "-c", "./sim --mode {mode} > out"]).expect_err("code");
+        assert!(
+            e.message.contains("\"$TESSERA_PARAM_MODE\""),
+            "{}",
+            e.message
+        );
+        let e = new(&["sh", "-c", "./sim --seed {seed}"]).expect_err("code");
+        assert!(e.message.contains("\"$TESSERA_SEED\""), "{}", e.message);
+        // The shell's own ${VAR} is not a placeholder; data words may hold them.
+        assert!(new(&["sh", "-c", "./sim \"${TESSERA_PARAM_MODE}\"", "{mode}"]).is_ok());
+        assert!(new(&["./sim", "--mode", "{mode}"]).is_ok());
+        assert!(new(&[""]).is_err());
+    }
+
+    #[test]
+    fn whole_numbers_are_integers_in_every_channel() {
+        assert_eq!(number_json(6.0), serde_json::json!(6));
+        assert_eq!(number_json(-0.5), serde_json::json!(-0.5));
+        assert_eq!(number_json(1e300), serde_json::json!(1e300));
+        assert_eq!(value_text(&serde_json::json!(6.0)), "6");
+        let inputs = BTreeMap::from([("n".to_string(), serde_json::json!(6.0))]);
+        assert_eq!(inputs_json(&inputs).to_string(), r#"{"n":6}"#);
+    }
+
     #[test]
     fn relative_paths_that_exist_are_made_absolute() {
         let dir = tempfile::tempdir().expect("tempdir");
@@ -719,6 +1113,9 @@ mod tests {
         assert_eq!(e.0, FailureKind::NoMetrics);
         let e = parse_metrics("[1, 2]").expect_err("array");
         assert_eq!(e.0, FailureKind::NoMetrics);
+        let e = parse_metrics(r#"{"a": 1, "b": 2, "a": 3}"#).expect_err("duplicate");
+        assert_eq!(e.0, FailureKind::NoMetrics);
+        assert!(e.1.contains("\"a\" is given twice"), "{}", e.1);
     }
 
     #[test]

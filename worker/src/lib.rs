@@ -6,6 +6,7 @@
 //! the built-in models and the external commands its own operator configured.
 
 pub mod external;
+pub mod guard;
 pub mod request;
 pub mod runner;
 pub mod session;

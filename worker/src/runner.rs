@@ -17,7 +17,7 @@ use std::sync::Arc;
 
 use tokio_util::sync::CancellationToken;
 
-use crate::external::ExternalCommand;
+use crate::external::{CommandError, ExternalCommand};
 pub use crate::request::{format_duration, RunRequest};
 use tessera_models as models;
 pub use tessera_models::outcome::{FailureKind, Metrics, RunFailure};
@@ -44,6 +44,9 @@ pub struct RunnerConfig {
     pub workdir_root: PathBuf,
     /// Keep run directories after the run (for debugging a simulator).
     pub keep_workdirs: bool,
+    /// Words run before each external command: a supervising process that
+    /// cleans up after the run (see [`crate::guard`]); empty for none.
+    pub guard: Vec<String>,
 }
 
 impl Default for RunnerConfig {
@@ -53,6 +56,7 @@ impl Default for RunnerConfig {
             commands: Vec::new(),
             workdir_root: std::env::temp_dir().join("tessera-runs"),
             keep_workdirs: false,
+            guard: Vec::new(),
         }
     }
 }
@@ -65,8 +69,10 @@ pub struct Runners {
 
 impl Runners {
     /// Builds the runner set. A later command of the same name replaces an
-    /// earlier one; a command named like a built-in model shadows it.
-    pub fn new(cfg: RunnerConfig) -> Self {
+    /// earlier one; a command named like a built-in model shadows it. A
+    /// command with placeholders where a program runs code is refused (see
+    /// [`ExternalCommand::new`]).
+    pub fn new(cfg: RunnerConfig) -> Result<Self, CommandError> {
         // Relative paths in commands are relative to where tessera started.
         let launch_dir = std::env::current_dir().unwrap_or_default();
         let mut commands = BTreeMap::new();
@@ -80,12 +86,13 @@ impl Runners {
                 cfg.workdir_root.clone(),
                 cfg.keep_workdirs,
                 launch_dir.clone(),
-            );
+                cfg.guard.clone(),
+            )?;
             if commands.insert(name.clone(), cmd).is_some() {
                 tracing::warn!(model = %name, "command given twice; the last one is used");
             }
         }
-        Runners { commands }
+        Ok(Runners { commands })
     }
 
     /// True if `model` is served by an operator command (not a built-in).

@@ -207,7 +207,7 @@ fn to_wire(s: &Spooled) -> pb::RunResult {
         attempt: s.attempt,
         outcome: Some(match &s.outcome {
             RunOutcome::Metrics(m) => pb::run_result::Outcome::Metrics(pb::Metrics {
-                values: m.iter().map(|(k, v)| (k.clone(), *v)).collect(),
+                bits: m.iter().map(|(k, v)| (k.clone(), v.to_bits())).collect(),
             }),
             RunOutcome::Failure {
                 kind,

@@ -8,7 +8,7 @@ use tessera_worker::runner::{FailureKind, RunRequest, Runner, RunnerConfig, Runn
 use tokio_util::sync::CancellationToken;
 
 fn runners() -> Runners {
-    Runners::new(RunnerConfig::default())
+    Runners::new(RunnerConfig::default()).expect("no commands")
 }
 
 #[tokio::test]

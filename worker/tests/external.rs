@@ -19,7 +19,9 @@ fn runners(dir: &Path, commands: &[(&str, &[&str])], keep: bool) -> Runners {
             .collect(),
         workdir_root: dir.join("runs"),
         keep_workdirs: keep,
+        guard: Vec::new(),
     })
+    .expect("valid commands")
 }
 
 fn sh(script: &str) -> Vec<&str> {

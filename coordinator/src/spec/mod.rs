@@ -177,12 +177,12 @@ pub const MAX_FILE_BYTES: u64 = 16 << 20;
 #[derive(Debug, thiserror::Error)]
 pub enum ReadError {
     /// The file could not be opened or read.
-    #[error("cannot read the sweep file {path}: {source}")]
+    #[error("cannot read the sweep file {path}: {error}")]
     Io {
         /// The path given.
         path: String,
-        /// What went wrong.
-        source: std::io::Error,
+        /// What went wrong (part of the message, not a separate source).
+        error: std::io::Error,
     },
     /// The file is larger than [`MAX_FILE_BYTES`].
     #[error(
@@ -207,9 +207,9 @@ pub enum ReadError {
 pub fn read_file(path: &std::path::Path) -> Result<String, ReadError> {
     use std::io::Read;
     let name = path.display().to_string();
-    let io = |source| ReadError::Io {
+    let io = |error| ReadError::Io {
         path: name.clone(),
-        source,
+        error,
     };
     if path.is_dir() {
         return Err(io(std::io::Error::other("it is a directory")));
