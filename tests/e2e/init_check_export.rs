@@ -345,3 +345,28 @@ fn the_example_sweep_files_check_cleanly() {
         );
     }
 }
+
+/// `check /dev/zero` and a huge initial design end at once with a clear
+/// error, reading at most 16 MiB and allocating nothing large.
+#[test]
+fn check_refuses_endless_and_huge_input_quickly() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let started = std::time::Instant::now();
+    let out = tessera(&["check", "/dev/zero"], dir.path());
+    assert_eq!(out.status.code(), Some(1));
+    assert!(text(&out.stderr).contains("larger than 16 MiB"), "{}", text(&out.stderr));
+    assert!(started.elapsed() < std::time::Duration::from_secs(10));
+    let huge = DESIGN_SPEC.replace("initial = 13", "initial = 1000000000");
+    std::fs::write(dir.path().join("huge.toml"), huge).expect("write");
+    for cmd in [&["check", "huge.toml", "--design"][..], &["run", "huge.toml"][..]] {
+        let out = tessera(cmd, dir.path());
+        assert_eq!(out.status.code(), Some(1), "{cmd:?}");
+        let err = text(&out.stderr);
+        assert!(err.contains("huge.toml:4:11: initial: must be a whole number from 1 to 10000"), "{err}");
+    }
+    let wide = DESIGN_SPEC.replace("range = [20.0, 60.0]", "range = [-1e308, 1e308]");
+    std::fs::write(dir.path().join("wide.toml"), wide).expect("write");
+    let out = tessera(&["check", "wide.toml", "--design"], dir.path());
+    assert_eq!(out.status.code(), Some(1));
+    assert!(text(&out.stderr).contains("too large to represent"), "{}", text(&out.stderr));
+}
