@@ -395,12 +395,11 @@ fn check_fit_verdicts_follow_the_leave_one_out_errors() {
         .iter()
         .find(|v| v.metric == "noise")
         .expect("noise");
+    // With one run per point nothing separates noise from a rough function.
     assert_eq!(noise.verdict, Verdict::NeedsMorePoints, "{}", noise.reason);
     assert!(noise.q2 < 0.3, "Q2 {}", noise.q2);
     assert!(
-        noise
-            .reason
-            .contains("points left out are predicted poorly"),
+        noise.reason.contains("points left out are predicted poorly"),
         "{}",
         noise.reason
     );
@@ -522,4 +521,29 @@ fn a_calibration_sweep_also_fits_the_discrepancy() {
     let want = ((branin(pts[0][0], pts[0][1]) - 10.0) / 2.0).powi(2);
     assert!((d.gp.observed_y()[0] - want).abs() < 1e-9 * want.max(1.0));
     assert_eq!(d.unit, "");
+}
+
+// With replicates, a metric whose point means differ only by run-to-run noise
+// (independent uniform noise on [0, 1], variance 1/12 per run: the variance of
+// a mean of 4 runs, 1/48, is the whole spread of the point means) is said to
+// barely change, not to need more points; a small real trend on top of a
+// large noise (same noise, trend 0 to 3 across x1) is still a trend.
+#[test]
+fn a_metric_that_is_only_noise_barely_changes() {
+    let mut s = sweep(4);
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(9);
+    add_results(&mut s, &design(24, 4), &mut |x, _r| {
+        BTreeMap::from([
+            ("noise".to_string(), rng.random_range(0.0..1.0)),
+            ("trend".to_string(), 0.2 * (x[0] + 5.0) + rng.random_range(0.0..1.0)),
+        ])
+    });
+    let fits = fitter::refit_if_stale(&mut s.store, s.id, &s.spec).expect("fit");
+    let verdicts = query::check_fit(&fits);
+    let of = |m: &str| verdicts.iter().find(|v| v.metric == m).expect("metric");
+    let noise = of("noise");
+    assert_eq!(noise.verdict, Verdict::BarelyChanges, "{}", noise.reason);
+    assert!(noise.reason.contains("barely changes over the box"), "{}", noise.reason);
+    let trend = of("trend");
+    assert_ne!(trend.verdict, Verdict::BarelyChanges, "{}", trend.reason);
 }

@@ -4,7 +4,8 @@
 //!
 //! The worker runs these models; the coordinator reads only their
 //! descriptions, to check sweep files and to give parameters and metrics
-//! their units. This crate must not do I/O, networking or anything async:
+//! their units. [`text`] writes numbers (with their units) the same way for
+//! every crate. This crate must not do I/O, networking or anything async:
 //! a model is a pure function of its inputs and seed.
 //!
 //! [`run_builtin`] validates the inputs against the description before
@@ -24,6 +25,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 
 pub mod outcome;
 pub mod test_functions;
+pub mod text;
 pub mod tiling;
 
 use crate::outcome::{FailureKind, Metrics, RunFailure};

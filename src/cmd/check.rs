@@ -103,11 +103,7 @@ pub fn run(args: CheckArgs) -> anyhow::Result<ExitCode> {
 /// A number as written in tables and CSV: whole values of integer
 /// parameters without decimals, others in the shortest exact form.
 pub fn format_value(x: f64, integer: bool) -> String {
-    if integer {
-        format!("{}", x.round() as i64)
-    } else {
-        format!("{x}")
-    }
+    tessera_models::text::value(x, integer)
 }
 
 /// The initial design as CSV with a header of parameter names.
@@ -155,13 +151,7 @@ fn table(rows: &[Vec<String>]) -> String {
     s
 }
 
-fn with_unit(value: String, unit: &str) -> String {
-    if unit.is_empty() {
-        value
-    } else {
-        format!("{value} {unit}")
-    }
-}
+use tessera_models::text::with_unit;
 
 /// The human summary of a valid sweep file.
 pub fn summary(spec: &Spec, file: &str) -> String {
@@ -259,8 +249,8 @@ pub fn summary(spec: &Spec, file: &str) -> String {
             let unit = spec.metric_unit(&t.metric);
             rows.push(vec![
                 t.metric.clone(),
-                format!("= {}", with_unit(t.value.to_string(), unit)),
-                format!("sd {}", with_unit(t.sd.to_string(), unit)),
+                format!("= {}", with_unit(tessera_models::text::exact(t.value), unit)),
+                format!("sd {}", with_unit(tessera_models::text::exact(t.sd), unit)),
             ]);
         }
         s.push_str(&table(&rows));

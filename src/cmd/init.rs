@@ -74,14 +74,7 @@ const TILING_SWEPT: &[(&str, f64, f64, &str)] = &[
     ("density", 10.0, 40.0, "log"),
 ];
 
-/// TOML for a number: whole numbers keep a `.0` so they read as decimals.
-fn toml_number(x: f64) -> String {
-    if x.fract() == 0.0 && x.abs() < 1e15 {
-        format!("{x:.1}")
-    } else {
-        format!("{x}")
-    }
-}
+use tessera_models::text::toml_decimal as toml_number;
 
 fn unit_comment(unit: &str) -> String {
     if unit.is_empty() {

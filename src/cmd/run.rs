@@ -92,11 +92,6 @@ fn progress_line(st: &SweepStatus, started: Instant, done_at_start: u64) -> Stri
     )
 }
 
-fn short(x: f64) -> String {
-    let s = format!("{x:.3}");
-    s.trim_end_matches('0').trim_end_matches('.').to_string()
-}
-
 /// A path or word as one shell word (quoted only when needed).
 fn quote(word: &str) -> String {
     shlex::try_quote(word).map_or_else(|_| format!("{word:?}"), |q| q.into_owned())
@@ -263,7 +258,7 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
         let first = spec
             .params
             .iter()
-            .map(|p| format!("{}={}", p.name, short((p.lo + p.hi) / 2.0)))
+            .map(|p| format!("{}={}", p.name, tessera_models::text::value(p.to_natural(0.5), p.integer)))
             .collect::<Vec<_>>()
             .join(" ");
         eprintln!("next:");

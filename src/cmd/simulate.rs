@@ -287,23 +287,9 @@ fn metrics_json(m: &Metrics) -> String {
     serde_json::Value::Object(map).to_string()
 }
 
-/// Six significant digits (trailing zeros dropped), no exponent for
-/// ordinary magnitudes.
+/// Six significant digits (trailing zeros dropped).
 fn format_value(v: f64) -> String {
-    let a = v.abs();
-    if a == 0.0 {
-        return "0".into();
-    }
-    if !(1e-4..1e9).contains(&a) {
-        return format!("{v:.5e}");
-    }
-    let decimals = (5 - a.log10().floor() as i32).max(0) as usize;
-    let s = format!("{v:.decimals$}");
-    if s.contains('.') {
-        s.trim_end_matches('0').trim_end_matches('.').to_string()
-    } else {
-        s
-    }
+    tessera_models::text::significant(v, 6)
 }
 
 /// An aligned table: metric, value, unit (and the meaning for built-ins).
@@ -419,14 +405,5 @@ mod tests {
         assert_eq!(v.texts["mode"], "fast");
         assert!(parse_values(&["a".into()]).is_err());
         assert!(parse_values(&["a=1".into(), "a=2".into()]).is_err());
-    }
-
-    #[test]
-    fn values_are_printed_with_six_significant_digits() {
-        assert_eq!(format_value(0.397887357), "0.397887");
-        assert_eq!(format_value(14794.4), "14794.4");
-        assert_eq!(format_value(3.0), "3");
-        assert_eq!(format_value(0.5), "0.5");
-        assert_eq!(format_value(-1e-7), "-1.00000e-7");
     }
 }

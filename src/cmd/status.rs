@@ -87,8 +87,19 @@ pub fn print_human(st: &SweepStatus, spec: Option<&Spec>) {
                 "best       {} = {:.6} at point {}",
                 st.objective_label, b.objective, b.point_id
             );
-            for (k, v) in &b.params {
-                println!("             {k} = {v:.6} {}", unit_of(spec, k));
+            // In the sweep file's order when it is known.
+            let mut params: Vec<(&String, &f64)> = b.params.iter().collect();
+            if let Some(spec) = spec {
+                params.sort_by_key(|(name, _)| spec.params.iter().position(|q| &q.name == *name));
+            }
+            for (k, v) in params {
+                println!(
+                    "             {k} = {}",
+                    tessera_models::text::with_unit(
+                        tessera_models::text::significant(*v, 6),
+                        unit_of(spec, k)
+                    )
+                );
             }
         }
         None => println!("best       no finished run yet"),

@@ -694,15 +694,10 @@ fn inputs_json(inputs: &BTreeMap<String, Value>) -> Value {
     )
 }
 
-/// Shortest round-trip decimal; exponent notation for very large or small;
-/// whole numbers without a decimal point.
+/// How a number is written for a simulator: exactly, in a form every
+/// language parses (see [`tessera_models::text::exact`]).
 pub fn format_number(x: f64) -> String {
-    let a = x.abs();
-    if a == 0.0 || (1e-6..1e15).contains(&a) {
-        format!("{x}")
-    } else {
-        format!("{x:e}")
-    }
+    tessera_models::text::exact(x)
 }
 
 /// Replaces `{key}` by its value for every known key; other braces stay.

@@ -105,31 +105,8 @@ pub fn natural_to_unit(p: &ParamSpec, x: f64) -> Option<f64> {
     })
 }
 
-/// Formats a number compactly for messages (up to 4 significant digits).
-pub fn short(x: f64) -> String {
-    if x == 0.0 || !x.is_finite() {
-        return format!("{x}");
-    }
-    let mag = x.abs().log10().floor() as i32;
-    if !(-4..6).contains(&mag) {
-        return format!("{x:.3e}");
-    }
-    let decimals = (3 - mag).max(0) as usize;
-    let s = format!("{x:.decimals$}");
-    if s.contains('.') {
-        s.trim_end_matches('0').trim_end_matches('.').to_string()
-    } else {
-        s
-    }
-}
-
-fn with_unit(s: String, unit: &str) -> String {
-    if unit.is_empty() {
-        s
-    } else {
-        format!("{s} {unit}")
-    }
-}
+pub use tessera_models::text::short;
+use tessera_models::text::with_unit;
 
 /// Checks one point against the sweep's parameters and maps it to the unit cube.
 fn to_unit_point(
@@ -333,12 +310,4 @@ mod tests {
         assert!(parse_assignment("x1=abc").is_err());
     }
 
-    #[test]
-    fn short_numbers() {
-        assert_eq!(short(9.6123), "9.612");
-        assert_eq!(short(-4.6), "-4.6");
-        assert_eq!(short(50.0), "50");
-        assert_eq!(short(0.0001234), "0.0001234");
-        assert_eq!(short(1.5e9), "1.500e9");
-    }
 }

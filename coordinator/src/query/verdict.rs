@@ -7,6 +7,7 @@
 //! near 1 (Bastos & O'Hagan 2009, Technometrics 51:425-438).
 
 use super::predict::short;
+use tessera_models::text::with_unit;
 use crate::fitter::MetricFit;
 
 /// Below this Q2 the surrogate explains too little of the variation between
@@ -44,6 +45,10 @@ pub enum Verdict {
     Trustworthy,
     /// At least one check failed: add points (and look at the reasons).
     NeedsMorePoints,
+    /// The differences between points are mostly run-to-run noise: the
+    /// metric hardly depends on the swept constants, and more points will
+    /// not change that.
+    BarelyChanges,
 }
 
 impl Verdict {
@@ -52,9 +57,15 @@ impl Verdict {
         match self {
             Verdict::Trustworthy => "trustworthy",
             Verdict::NeedsMorePoints => "needs more points",
+            Verdict::BarelyChanges => "barely changes over the box",
         }
     }
 }
+
+/// Above this share of the spread between point means that is noise (run
+/// to run, or the fitted nugget), a metric "barely changes over the box"
+/// (our choice: half the variance).
+pub const NOISE_SHARE: f64 = 0.5;
 
 /// The leave-one-out diagnostics of one surrogate and the verdict.
 #[derive(Clone, Debug, PartialEq, serde::Serialize)]
@@ -141,7 +152,23 @@ fn judge(f: &MetricFit) -> FitVerdict {
             ));
         }
     }
-    let (verdict, reason) = if failed.is_empty() {
+    let y = f.gp.observed_y();
+    let n = y.len() as f64;
+    let mean = y.iter().sum::<f64>() / n.max(1.0);
+    let spread = y.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / (n - 1.0).max(1.0);
+    let noise = f.gp.observation_noise();
+    let noise = noise.iter().sum::<f64>() / noise.len().max(1) as f64;
+    let noise_share = if spread > 0.0 { noise / spread } else { 1.0 };
+    let (verdict, reason) = if noise_share > NOISE_SHARE && !failed.is_empty() {
+        (
+            Verdict::BarelyChanges,
+            format!(
+                "this metric barely changes over the box: the point means differ by sd {} while run-to-run noise alone gives sd {}; it hardly depends on the swept constants, and more points will not change that",
+                with_unit(short(spread.sqrt()), &f.unit),
+                with_unit(short(noise.sqrt()), &f.unit)
+            ),
+        )
+    } else if failed.is_empty() {
         (
             Verdict::Trustworthy,
             format!(

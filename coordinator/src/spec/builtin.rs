@@ -45,11 +45,7 @@ fn did_you_mean(word: &str, known: &[&str]) -> String {
 }
 
 fn with_unit(x: f64, unit: &str) -> String {
-    if unit.is_empty() {
-        format!("{x}")
-    } else {
-        format!("{x} {unit}")
-    }
+    tessera_models::text::with_unit(tessera_models::text::exact(x), unit)
 }
 
 /// Applies the rules of built-in model `model` to `spec`, recording errors

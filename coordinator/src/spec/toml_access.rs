@@ -60,9 +60,9 @@ pub(super) fn closest<'k>(word: &str, known: &[&'k str]) -> Option<&'k str> {
         .map(|(_, k)| k)
 }
 
-/// Formats a number for messages without a trailing `.0` on whole numbers.
+/// A number quoted in a message, exactly as it reads back.
 pub(super) fn num(x: f64) -> String {
-    format!("{x}")
+    tessera_models::text::exact(x)
 }
 
 pub(super) fn parse_integer(v: &DeValue<'_>) -> Option<Option<i64>> {

@@ -401,6 +401,16 @@ impl Gp {
             .collect()
     }
 
+    /// The noise variance of each observation in natural units: its known
+    /// noise plus the fitted nugget.
+    pub fn observation_noise(&self) -> Vec<f64> {
+        let s2 = self.y_scale * self.y_scale;
+        self.noise
+            .iter()
+            .map(|v| (v + self.hyper.nugget) * s2)
+            .collect()
+    }
+
     /// Observed inputs.
     pub fn observed_x(&self) -> Vec<Vec<f64>> {
         (0..self.n)
