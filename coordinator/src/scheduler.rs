@@ -8,7 +8,7 @@
 //! store has said the result is committed ([`Scheduler::apply_committed`]).
 //!
 //! It does no I/O of its own and holds no async state, so every rule can be
-//! tested with plain function calls and a fake clock ([`Clock`]).
+//! tested with plain function calls and chosen instants (every method takes `now`).
 
 use crate::spec::Spec;
 use crate::status::{best_point, group_reason, BestPoint, PointResults, SweepStatus, WorkerStatus};

@@ -8,7 +8,7 @@
 //! "Fast splittable pseudorandom number generators", OOPSLA; the constants of
 //! Vigna's `splitmix64.c`), applied once per component with the golden-ratio
 //! increment between components. The finaliser is a bijection on 64-bit
-//! words, so two runs share a seed only by a chance clash of the final
+//! words, so two runs share their seed only by a chance clash of the final
 //! 63-bit values (about one in 10^19 per pair).
 //! Hand-written because it is eight lines and no crate offers exactly this.
 

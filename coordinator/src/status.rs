@@ -38,7 +38,7 @@ pub struct BestPoint {
     pub point_id: i64,
     /// Parameter values, natural units.
     pub params: BTreeMap<String, f64>,
-    /// The objective in the user's sign (the metric itself for minimize or
+    /// The objective in the sweep file's sign (the metric itself for minimize or
     /// maximize; the standardised discrepancy for calibration targets).
     pub objective: f64,
     /// Finished replicates behind the value.

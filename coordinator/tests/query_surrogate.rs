@@ -293,7 +293,7 @@ fn unknown_or_missing_parameters_are_refused_with_the_valid_ones() {
     );
 }
 
-// Invariant of the design (issue 5): a fit is stored with the number of
+// Requirement (fast, reproducible queries; docs/queries.md): a fit is stored with the number of
 // results it saw and not redone until that number changes.
 #[test]
 fn refits_only_when_results_change_and_answers_stay_the_same() {
@@ -399,7 +399,9 @@ fn check_fit_verdicts_follow_the_leave_one_out_errors() {
     assert_eq!(noise.verdict, Verdict::NeedsMorePoints, "{}", noise.reason);
     assert!(noise.q2 < 0.3, "Q2 {}", noise.q2);
     assert!(
-        noise.reason.contains("points left out are predicted poorly"),
+        noise
+            .reason
+            .contains("points left out are predicted poorly"),
         "{}",
         noise.reason
     );
@@ -535,7 +537,10 @@ fn a_metric_that_is_only_noise_barely_changes() {
     add_results(&mut s, &design(24, 4), &mut |x, _r| {
         BTreeMap::from([
             ("noise".to_string(), rng.random_range(0.0..1.0)),
-            ("trend".to_string(), 0.2 * (x[0] + 5.0) + rng.random_range(0.0..1.0)),
+            (
+                "trend".to_string(),
+                0.2 * (x[0] + 5.0) + rng.random_range(0.0..1.0),
+            ),
         ])
     });
     let fits = fitter::refit_if_stale(&mut s.store, s.id, &s.spec).expect("fit");
@@ -543,7 +548,11 @@ fn a_metric_that_is_only_noise_barely_changes() {
     let of = |m: &str| verdicts.iter().find(|v| v.metric == m).expect("metric");
     let noise = of("noise");
     assert_eq!(noise.verdict, Verdict::BarelyChanges, "{}", noise.reason);
-    assert!(noise.reason.contains("barely changes over the box"), "{}", noise.reason);
+    assert!(
+        noise.reason.contains("barely changes over the box"),
+        "{}",
+        noise.reason
+    );
     let trend = of("trend");
     assert_ne!(trend.verdict, Verdict::BarelyChanges, "{}", trend.reason);
 }

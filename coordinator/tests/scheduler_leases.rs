@@ -1,5 +1,5 @@
 //! Lease rules of the scheduler, with a controlled clock (no I/O, no sleeps).
-//! The rules are DESIGN.md invariant 1 (a design requirement, not an outside
+//! The rules are the project's "nothing lost" invariant (docs/architecture.md; a requirement, not an outside
 //! reference): expired leases are handed out again, the first result wins,
 //! failures are retried `retries` times.
 

@@ -28,7 +28,7 @@ fn metrics(pairs: &[(&str, f64)]) -> BTreeMap<String, f64> {
     pairs.iter().map(|(k, v)| (k.to_string(), *v)).collect()
 }
 
-// Definition (issue 2 / docs/sweep-file.md): minimize -> m, maximize -> -m.
+// Definition (docs/sweep-file.md): minimize -> m, maximize -> -m.
 #[test]
 fn loss_of_minimize_and_maximize() {
     let s = with("[objective]\nminimize = \"cv\"\n");

@@ -322,7 +322,7 @@ fn an_empty_file_becomes_a_new_database() {
 
 /// Two processes opening a new database at the same moment (a coordinator
 /// creating it while `tessera status` reads it) both succeed and the schema
-/// is created once. Requirement (DESIGN.md invariant 1), no outside source.
+/// is created once. Requirement (docs/architecture.md, "nothing lost"), no outside source.
 #[test]
 fn concurrent_opens_of_a_new_file_both_succeed() {
     for round in 0..20 {

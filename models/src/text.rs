@@ -76,7 +76,15 @@ mod tests {
 
     #[test]
     fn exact_reads_back_exactly() {
-        for x in [0.1, 1.0 / 3.0, 6.02e23, -1e-12, 25854.295647428462, 5e-324, 1e308] {
+        for x in [
+            0.1,
+            1.0 / 3.0,
+            6.02e23,
+            -1e-12,
+            25854.295647428462,
+            5e-324,
+            1e308,
+        ] {
             assert_eq!(exact(x).parse::<f64>().ok(), Some(x), "{x:e}");
         }
         assert_eq!(exact(0.5), "0.5");

@@ -249,7 +249,10 @@ pub fn summary(spec: &Spec, file: &str) -> String {
             let unit = spec.metric_unit(&t.metric);
             rows.push(vec![
                 t.metric.clone(),
-                format!("= {}", with_unit(tessera_models::text::exact(t.value), unit)),
+                format!(
+                    "= {}",
+                    with_unit(tessera_models::text::exact(t.value), unit)
+                ),
                 format!("sd {}", with_unit(tessera_models::text::exact(t.sd), unit)),
             ]);
         }

@@ -200,7 +200,11 @@ impl<'a> Table<'a> {
                 row.push(v.map_or(String::new(), |x| super::check::format_value(x, p.integer)));
             }
             for m in &self.metrics {
-                row.push(e.metrics.get(m).map_or(String::new(), |x| tessera_models::text::exact(*x)));
+                row.push(
+                    e.metrics
+                        .get(m)
+                        .map_or(String::new(), |x| tessera_models::text::exact(*x)),
+                );
             }
             row.push(e.failure_kind.clone().unwrap_or_default());
             row.push(e.failure_reason.clone().unwrap_or_default());

@@ -93,7 +93,7 @@ const REFINE_BATCH: usize = 24;
 /// random local search from the best few. Every point keeps a minimum
 /// distance, sep = 0.1 sqrt(d) (n + q)^(-1/d) (our heuristic, common
 /// practice, no source), from `avoid`, the observed points and the other
-/// proposals. Deterministic for a seed. If nothing satisfies the distance
+/// proposals. Deterministic given the seed. If nothing satisfies the distance
 /// (a crowded cube), the best candidate is taken regardless.
 #[track_caller]
 pub fn propose(

@@ -21,7 +21,7 @@ pub const DESIGN_P: f64 = 50.0;
 pub const MAX_OPTIMISED_POINTS: usize = 2000;
 
 /// A Latin hypercube of `n` points in [0,1)^`d`, optimised for the phi_p
-/// criterion ([`DESIGN_P`]), deterministic for a seed.
+/// criterion ([`DESIGN_P`]), deterministic given the seed.
 ///
 /// Each column holds exactly one point in each stratum [k/n, (k+1)/n)
 /// (McKay, Beckman & Conover 1979). Each point sits at a uniformly random
@@ -256,7 +256,7 @@ pub fn min_distance(points: &[Vec<f64>]) -> f64 {
 }
 
 /// The squared centred L2 discrepancy (Hickernell 1998), the value scipy's
-/// `qmc.discrepancy(X, method='CD')` returns. Points must lie in [0,1]^d.
+/// `qmc.discrepancy(X, method='CD')` returns. Points must lie in the unit cube.
 ///
 /// CD^2 = (13/12)^d - (2/n) sum_i prod_k (1 + |z_ik|/2 - z_ik^2/2)
 ///      + (1/n^2) sum_{i,j} prod_k (1 + |z_ik|/2 + |z_jk|/2 - |x_ik - x_jk|/2),

@@ -3,7 +3,7 @@
 //!
 //! This crate owns the mathematics and nothing else. It must not do I/O,
 //! async, gRPC or SQLite; every function is deterministic given its inputs
-//! and a seed. Inputs live in the unit cube: the coordinator maps natural
+//! and its seed. Inputs live in the unit cube: the coordinator maps natural
 //! units (log scales, integers) to and from it.
 //!
 //! Modules: [`design`] (maximin Latin hypercubes and design measures),

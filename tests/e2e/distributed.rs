@@ -26,7 +26,7 @@ fn worker(dir: &std::path::Path, port: u16, name: &str, slots: u32, extra: &[&st
     Proc::start(cmd, dir, name)
 }
 
-/// DESIGN.md invariant 1: a worker killed with SIGKILL mid-run loses nothing;
+/// Nothing lost (docs/architecture.md): a worker killed with SIGKILL mid-run loses nothing;
 /// its leases expire and are handed to the other worker.
 #[test]
 fn worker_killed_mid_run_the_sweep_still_completes_once_each() {
@@ -64,7 +64,7 @@ fn worker_killed_mid_run_the_sweep_still_completes_once_each() {
     );
 }
 
-/// DESIGN.md invariant 1: the coordinator killed with SIGKILL and restarted on
+/// Nothing lost (docs/architecture.md): the coordinator killed with SIGKILL and restarted on
 /// the same database resumes; workers that kept running reconnect and deliver.
 #[test]
 fn coordinator_killed_and_restarted_loses_and_doubles_nothing() {

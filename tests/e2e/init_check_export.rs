@@ -354,19 +354,53 @@ fn check_refuses_endless_and_huge_input_quickly() {
     let started = std::time::Instant::now();
     let out = tessera(&["check", "/dev/zero"], dir.path());
     assert_eq!(out.status.code(), Some(1));
-    assert!(text(&out.stderr).contains("larger than 16 MiB"), "{}", text(&out.stderr));
+    assert!(
+        text(&out.stderr).contains("larger than 16 MiB"),
+        "{}",
+        text(&out.stderr)
+    );
     assert!(started.elapsed() < std::time::Duration::from_secs(10));
     let huge = DESIGN_SPEC.replace("initial = 13", "initial = 1000000000");
     std::fs::write(dir.path().join("huge.toml"), huge).expect("write");
-    for cmd in [&["check", "huge.toml", "--design"][..], &["run", "huge.toml"][..]] {
+    for cmd in [
+        &["check", "huge.toml", "--design"][..],
+        &["run", "huge.toml"][..],
+    ] {
         let out = tessera(cmd, dir.path());
         assert_eq!(out.status.code(), Some(1), "{cmd:?}");
         let err = text(&out.stderr);
-        assert!(err.contains("huge.toml:4:11: initial: must be a whole number from 1 to 10000"), "{err}");
+        assert!(
+            err.contains("huge.toml:4:11: initial: must be a whole number from 1 to 10000"),
+            "{err}"
+        );
     }
     let wide = DESIGN_SPEC.replace("range = [20.0, 60.0]", "range = [-1e308, 1e308]");
     std::fs::write(dir.path().join("wide.toml"), wide).expect("write");
     let out = tessera(&["check", "wide.toml", "--design"], dir.path());
     assert_eq!(out.status.code(), Some(1));
-    assert!(text(&out.stderr).contains("too large to represent"), "{}", text(&out.stderr));
+    assert!(
+        text(&out.stderr).contains("too large to represent"),
+        "{}",
+        text(&out.stderr)
+    );
+}
+
+/// The complete example of `docs/sweep-file.md` is a valid sweep file
+/// without warnings.
+#[test]
+fn the_documented_example_checks_cleanly() {
+    let page =
+        std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("docs/sweep-file.md"))
+            .expect("docs/sweep-file.md");
+    let start = page.find("```toml\n").expect("a TOML example") + "```toml\n".len();
+    let end = start + page[start..].find("```").expect("end of the example");
+    let dir = tempfile::tempdir().expect("tempdir");
+    std::fs::write(dir.path().join("example.toml"), &page[start..end]).expect("write");
+    let out = tessera(&["check", "example.toml"], dir.path());
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    assert!(
+        text(&out.stderr).is_empty(),
+        "warnings: {}",
+        text(&out.stderr)
+    );
 }

@@ -15,5 +15,6 @@ mod one_writer;
 mod partition;
 mod predict_check_fit;
 mod simulate;
+mod tidy;
 mod tls_health;
 mod trend_plot;

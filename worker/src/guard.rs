@@ -89,7 +89,7 @@ pub fn descendants(root: i32) -> Vec<i32> {
 }
 
 /// Kills every descendant of this process and reaps them, until none is
-/// left (or [`CLEAN_UP_FOR`] has passed). Returns how many were killed.
+/// left (or two seconds have passed). Returns how many were killed.
 pub fn kill_descendants() -> usize {
     let me = rustix::process::getpid().as_raw_nonzero().get();
     let started = Instant::now();

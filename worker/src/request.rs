@@ -26,7 +26,7 @@ pub struct RunRequest {
     /// Wall-clock limit for the run; `None` waits forever.
     pub timeout: Option<Duration>,
     /// Metrics the sweep needs; a run that does not report one of them fails
-    /// with [`FailureKind::MissingMetric`].
+    /// with [`FailureKind::MissingMetric`](tessera_models::outcome::FailureKind::MissingMetric).
     pub expected_metrics: Vec<String>,
 }
 

@@ -98,7 +98,7 @@ async fn python_example_follows_the_contract() {
     // own definition: check the two metrics agree.
     let expected = (a["final_cells"] / 10.0).ln() / 24.0;
     assert!((a["net_growth_per_h"] - expected).abs() < 1e-12, "{a:?}");
-    // Same seed, same result; the script is deterministic for a seed.
+    // Same seed, same result; the script is deterministic given its seed.
     assert_eq!(run(&r, req.clone()).await.expect("again"), a);
     // A wrong input name is the script's own error: exit code 2 with stderr.
     req.params.insert("bogus".into(), 1.0);

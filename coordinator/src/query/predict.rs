@@ -309,5 +309,4 @@ mod tests {
         assert!(parse_assignment("=3").is_err());
         assert!(parse_assignment("x1=abc").is_err());
     }
-
 }

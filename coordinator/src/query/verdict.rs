@@ -7,8 +7,8 @@
 //! near 1 (Bastos & O'Hagan 2009, Technometrics 51:425-438).
 
 use super::predict::short;
-use tessera_models::text::with_unit;
 use crate::fitter::MetricFit;
+use tessera_models::text::with_unit;
 
 /// Below this Q2 the surrogate explains too little of the variation between
 /// points (common practice, no source).
@@ -19,7 +19,7 @@ pub const MIN_Q2: f64 = 0.7;
 pub const MIN_COVERAGE: f64 = 0.85;
 
 /// Above this share of left-out points inside their 95% interval, together
-/// with standardised errors of sd below [`MIN_STANDARDIZED_SD`], a note says
+/// with standardised errors of sd below `MIN_STANDARDIZED_SD`, a note says
 /// the intervals are wider than needed (cautious, not a reason to distrust
 /// the surrogate; common practice, no source).
 pub const MAX_COVERAGE: f64 = 0.99;

@@ -347,7 +347,7 @@ impl Spec {
         }
     }
 
-    /// Turns a loss back into the user's terms (a maximised metric changes sign back).
+    /// Turns a loss back into the sweep file's terms (a maximised metric changes sign back).
     pub fn display_objective(&self, loss: f64) -> f64 {
         match &self.objective {
             Some(Objective {

@@ -434,7 +434,7 @@ impl Reader<'_> {
         fixed: &BTreeSet<String>,
     ) -> Option<Vec<ParamSpec>> {
         let t = self.table(v, "params", "[params.NAME]")?;
-        // The document map is sorted by name; the user's order is the order in the file.
+        // The document map is sorted by name; the order that counts is the order in the file.
         let mut entries: Vec<_> = t.iter().collect();
         entries.sort_by_key(|(k, _)| k.span().start);
         let mut out = Vec::new();

@@ -124,7 +124,7 @@ impl Reader<'_> {
     }
 
     /// Records a warning: something that will not stop the sweep but that
-    /// the user should know about.
+    /// whoever runs the sweep should know about.
     pub(super) fn warning(&mut self, at: usize, key: &str, message: impl Into<String>) {
         let (line, column) = self.lines.line_col(at);
         self.warnings.push((
