@@ -3,7 +3,7 @@
 scikit-learn. Writes JSON under surrogate/tests/fixtures/; the tests read the
 committed files (CI has no Python).
 
-Usage: python3 scripts/fixtures_surrogate.py [design|acquisition|gp|bulk|all]
+Usage: python3 scripts/fixtures_surrogate.py [design|acquisition|gp|bulk|holdout|all]
 
 Each JSON file records the library versions that produced it.
 """
@@ -115,8 +115,8 @@ def acquisition():
 
 # Bounds shared with tessera_surrogate::gp::bounds() (standardised outputs,
 # unit-cube inputs), so both optimisers search the same box.
-SIGNAL_BOUNDS = (1e-3, 1e3)
-LENGTH_BOUNDS = (1e-2, 1e2)
+SIGNAL_BOUNDS = (1e-3, 1e5)
+LENGTH_BOUNDS = (1e-2, 1e3)
 NUGGET_BOUNDS = (1e-8, 10.0)
 
 
@@ -264,8 +264,39 @@ def gp_bulk():
     })
 
 
+def holdout():
+    """Out-of-sample accuracy of scikit-learn's GaussianProcessRegressor with
+    its default bounds on deterministic Branin data: 40-point Latin
+    hypercubes (scipy, seeds 9 to 14) in the unit square, 60 uniform
+    held-out points each. Kernel ConstantKernel * Matern(nu=2.5, ARD) +
+    WhiteKernel, normalize_y=True, 5 restarts."""
+    from sklearn.gaussian_process import GaussianProcessRegressor
+    from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+
+    cases = []
+    for seed in range(9, 15):
+        Xtr = qmc.LatinHypercube(2, rng=np.random.default_rng(seed)).random(40)
+        Xte = np.random.default_rng(seed + 100).random((60, 2))
+        ytr, yte = branin_unit(Xtr), branin_unit(Xte)
+        k = ConstantKernel(1.0) * Matern(length_scale=[1.0, 1.0], nu=2.5) + WhiteKernel()
+        g = GaussianProcessRegressor(k, normalize_y=True, n_restarts_optimizer=5,
+                                     random_state=0).fit(Xtr, ytr)
+        mu, sd = g.predict(Xte, return_std=True)
+        c, l, w = sk_hyper(g.kernel_)
+        cases.append({
+            "seed": seed, "x_train": Xtr.tolist(), "y_train": ytr.tolist(),
+            "x_test": Xte.tolist(), "y_test": yte.tolist(),
+            "sklearn_rmse": float(np.sqrt(np.mean((mu - yte) ** 2))),
+            "sklearn_coverage95": float(np.mean(np.abs(mu - yte) <= 1.959963984540054 * sd)),
+            "sklearn_hyper": {"signal_var": c, "lengthscales": l, "nugget": w},
+        })
+    write("gp_holdout_sklearn.json", {"versions": versions(), "cases": cases})
+
+
 if __name__ == "__main__":
     what = sys.argv[1] if len(sys.argv) > 1 else "all"
+    if what in ("holdout", "all"):
+        holdout()
     if what in ("design", "all"):
         design()
     if what in ("acquisition", "all"):

@@ -59,7 +59,7 @@ impl Default for FitOptions {
 /// keep the optimiser away from degenerate values (length scales far below
 /// the point spacing or far beyond the cube); common practice, no source.
 pub fn bounds() -> [(f64, f64); 3] {
-    [(1e-3, 1e3), (1e-2, 1e2), (1e-8, 10.0)]
+    [(1e-3, 1e5), (1e-2, 1e3), (1e-8, 10.0)]
 }
 
 /// Penalty weight for leaving the box, per squared log unit (the objective
