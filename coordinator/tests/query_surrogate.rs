@@ -249,8 +249,10 @@ fn warnings_fire_outside_the_sampled_box_and_far_from_data() {
         "{w}"
     );
     assert!(w.contains("outside the sweep's range [-5, 10]"), "{w}");
+    // Three box widths away the posterior sd is most of the prior sd (how
+    // much depends on the fitted length scales; Branin's are long).
     assert!(
-        far.metrics[0].sd_ratio > 0.95,
+        far.metrics[0].sd_ratio > query::SD_RATIO_WARN,
         "sd ratio {}",
         far.metrics[0].sd_ratio
     );
