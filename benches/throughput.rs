@@ -34,6 +34,7 @@ async fn one(slots: u32, workers: u32, evaluations: u32) -> (f64, Duration) {
         spec_file: "bench.toml".into(),
         force: false,
         times: LeaseTimes::default(),
+        reproducible_default: false,
     })
     .expect("open");
     let runner = Arc::new(Runners::new(RunnerConfig::default()).expect("no commands"));

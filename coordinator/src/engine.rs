@@ -5,7 +5,7 @@
 
 use crate::committer::{CommitError, StoreHandle};
 use crate::fitter::{self, MetricFit};
-use crate::planner;
+use crate::planner::Planner;
 use crate::scheduler::{
     unix_ms, Decided, Grant, JoinInfo, LeaseContext, LeaseTimes, Report, ReportOutcome,
     ScheduleError, Scheduler,
@@ -29,19 +29,21 @@ pub enum OpenError {
     /// The database could not be opened or written.
     #[error(transparent)]
     Store(#[from] StoreError),
-    /// The database holds a different sweep.
+    /// The sweep file changes a key that the stored results depend on.
     #[error(
-        "{db} already holds sweep {stored_name:?}, written from a different sweep file than {file}.\n\
-         The sweep stored in the database is the one that continues. To resume it anyway, add --force;\n\
-         to start a new sweep from {file}, give another --db file."
+        "{file} changes `{key}` of the sweep stored in {db}, but {why}.\n\
+         Keys that only steer what comes next (budget, strategy, batch, stop, retries, timeout, objective, targets) may change.\n\
+         To start a new sweep from {file}, give another --db file; to continue the stored sweep unchanged, add --force."
     )]
-    DifferentSpec {
+    Incompatible {
         /// Database path.
         db: String,
         /// Sweep file given now.
         file: String,
-        /// Name of the stored sweep.
-        stored_name: String,
+        /// The key that changed.
+        key: String,
+        /// Why that matters.
+        why: String,
     },
     /// The stored spec no longer parses (written by another version).
     #[error(
@@ -82,6 +84,9 @@ pub struct OpenOptions {
     pub force: bool,
     /// Lease timing.
     pub times: LeaseTimes,
+    /// Whether batches wait for every earlier result when the sweep file
+    /// does not say (`reproducible`).
+    pub reproducible_default: bool,
 }
 
 /// A running sweep.
@@ -139,29 +144,37 @@ impl Engine {
         let db_name = opts.db.display().to_string();
         let (sweep, spec_text, spec) = match store.sweep()? {
             Some(sw) => {
-                // Edits that change nothing (comments, spacing, key order)
-                // are not a different sweep.
-                let same = sw.spec_text == opts.spec_text
-                    || spec::parse(&sw.spec_text, &sw.spec_file)
-                        .is_ok_and(|stored| stored == given);
-                if !same {
-                    if !opts.force {
-                        return Err(OpenError::DifferentSpec {
-                            db: db_name,
-                            file: opts.spec_file.clone(),
-                            stored_name: sw.name.clone(),
-                        });
-                    }
-                    tracing::warn!(db = %db_name, "the sweep file differs from the stored one; resuming the stored sweep (--force)");
-                }
                 let stored = spec::parse(&sw.spec_text, &sw.spec_file).map_err(|errors| {
                     OpenError::StoredSpec {
                         db: db_name.clone(),
                         errors,
                     }
                 })?;
-                let text = sw.spec_text.clone();
-                (sw, text, stored)
+                // Edits that change nothing (comments, spacing, key order)
+                // are not a different sweep; edits that only steer what
+                // happens next (a raised budget, another strategy) continue
+                // it with the new file; others are refused.
+                let same = sw.spec_text == opts.spec_text || stored == given;
+                if same {
+                    let text = sw.spec_text.clone();
+                    (sw, text, stored)
+                } else if opts.force {
+                    tracing::warn!(db = %db_name, "the sweep file differs from the stored one; resuming the stored sweep (--force)");
+                    let text = sw.spec_text.clone();
+                    (sw, text, stored)
+                } else {
+                    given
+                        .continues(&stored)
+                        .map_err(|inc| OpenError::Incompatible {
+                            db: db_name.clone(),
+                            file: opts.spec_file.clone(),
+                            key: inc.key,
+                            why: inc.why,
+                        })?;
+                    store.update_spec_text(sw.id, &opts.spec_text, &opts.spec_file)?;
+                    tracing::info!(db = %db_name, budget = given.budget, "continuing the stored sweep with the edited sweep file");
+                    (sw, opts.spec_text.clone(), given)
+                }
             }
             None => {
                 let sw = store.create_sweep(
@@ -181,6 +194,7 @@ impl Engine {
                     values,
                     origin: PointOrigin::Design,
                     batch: 0,
+                    proposal: None,
                 })
                 .collect();
             store.insert_points(sweep.id, &design, spec.replicates.max(1), spec.seed)?;
@@ -209,7 +223,8 @@ impl Engine {
         let replicates = spec.replicates.max(1);
         let seed = spec.seed;
         let spec = Arc::new(spec);
-        let sched = Scheduler::new(spec.clone(), opts.times, nonce, &points, &evaluations);
+        let mut sched = Scheduler::new(spec.clone(), opts.times, nonce, &points, &evaluations);
+        sched.set_reproducible(spec.reproducible.unwrap_or(opts.reproducible_default));
         let (store, _join) = StoreHandle::spawn(store, sweep.id, replicates, seed)?;
         Ok(Arc::new(Engine {
             sched: Mutex::new(sched),
@@ -352,8 +367,11 @@ impl Engine {
 
     /// Runs the planner and lease-expiry loop until `stop` is cancelled.
     pub async fn run_planner(self: Arc<Self>, stop: CancellationToken) {
-        let mut tick = tokio::time::interval(Duration::from_millis(500));
+        let mut tick = tokio::time::interval(Duration::from_millis(200));
         tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+        // The planner's memory (warm starts); owned by this task alone.
+        let mut planner = Planner::new();
+        let mut small_rounds = 0u32;
         loop {
             tokio::select! {
                 _ = stop.cancelled() => break,
@@ -366,48 +384,38 @@ impl Engine {
                 match s.wants_plan() {
                     Some(q) if !self.draining.load(Ordering::SeqCst) => {
                         s.set_planning(true);
-                        Some((
-                            self.spec.clone(),
-                            s.point_results(),
-                            s.unfinished_points(),
-                            q,
-                            s.point_count() as u64,
-                        ))
+                        Some((s.point_results(), s.unfinished_points(), q, s.next_batch()))
                     }
                     _ => None,
                 }
             };
-            let Some((spec, results, unfinished, q, count)) = job else {
+            let Some((results, unfinished, q, batch)) = job else {
                 continue;
             };
-            let seed = spec.seed ^ count.wrapping_mul(0x9E37_79B9_7F4A_7C15);
-            let origin = match spec.strategy {
-                spec::Strategy::Improve => PointOrigin::Improve,
-                spec::Strategy::Explore => PointOrigin::Explore,
-            };
+            // Each round's search is fixed by the sweep seed and its batch number.
+            let seed = crate::seed::replicate_seed(self.spec.seed, u64::from(batch), u32::MAX);
+            let spec = self.spec.clone();
+            let started = Instant::now();
             let planned = tokio::task::spawn_blocking(move || {
-                planner::propose(&spec, &results, &unfinished, q, seed)
+                let plan = planner.plan(&spec, &results, &unfinished, q, batch, seed);
+                (planner, plan)
             })
             .await;
-            let values = match planned {
-                Ok(v) => v,
+            let plan = match planned {
+                Ok((p, plan)) => {
+                    planner = p;
+                    plan
+                }
                 Err(e) => {
                     tracing::error!(error = %e, "planner task failed");
+                    planner = Planner::new();
                     lock(&self.sched).set_planning(false);
                     continue;
                 }
             };
-            let batch = (count as u32).max(1);
-            let new: Vec<NewPoint> = values
-                .into_iter()
-                .map(|values| NewPoint {
-                    values,
-                    origin,
-                    batch,
-                })
-                .collect();
-            let n = new.len();
-            match self.store.insert_points(new).await {
+            let n = plan.points.len();
+            let ms = started.elapsed().as_millis() as u64;
+            match self.store.insert_points(plan.points).await {
                 Ok((points, evals)) => {
                     let mut s = lock(&self.sched);
                     s.add_points(&points);
@@ -415,11 +423,49 @@ impl Engine {
                         s.add_evaluation(e);
                     }
                     s.set_planning(false);
-                    tracing::info!(points = n, "proposed new points");
+                    tracing::info!(points = n, batch, ms, "proposed new points");
                 }
                 Err(e) => {
                     tracing::error!(error = %e, "storing proposed points failed");
                     lock(&self.sched).set_planning(false);
+                    continue;
+                }
+            }
+            // The objective's surrogate that chose the points is the one served.
+            if let Some(fit) = plan.objective_fit {
+                let sweep_id = self.sweep_id;
+                let to_save = vec![fit.clone()];
+                if let Ok(Err(e)) = self
+                    .store
+                    .call(move |st| fitter::save_fits(st, sweep_id, &to_save))
+                    .await
+                {
+                    tracing::warn!(error = %e, "cannot store the objective's surrogate");
+                }
+                if let Ok(stored) = fitter::as_stored(&fit) {
+                    let mut fits = lock(&self.fits);
+                    fits.retain(|f| f.metric != stored.metric);
+                    fits.push(stored);
+                    fits.sort_by(|a, b| a.metric.cmp(&b.metric));
+                }
+            }
+            // Stopping early: the largest expected improvement stayed small.
+            if let (Some(rule), spec::Strategy::Improve, Some(best)) =
+                (self.spec.stop, self.spec.strategy, plan.best_acquisition)
+            {
+                small_rounds = if best < rule.improvement_below {
+                    small_rounds + 1
+                } else {
+                    0
+                };
+                if small_rounds >= rule.rounds {
+                    let reason = format!(
+                        "stopped early: the largest expected improvement stayed below {} for {} planning rounds",
+                        tessera_models::text::exact(rule.improvement_below),
+                        rule.rounds
+                    );
+                    tracing::info!("{reason}");
+                    lock(&self.sched).stop(reason);
                 }
             }
         }

@@ -20,6 +20,7 @@
 //! while the surrogates are fitted.
 
 use crate::spec::Spec;
+use crate::status::PointResults;
 use crate::store::{EvalStatus, EvaluationRecord, FitRecord, NewFit, PointRecord, Store};
 use serde::{Deserialize, Serialize};
 use std::collections::{BTreeMap, BTreeSet};
@@ -223,47 +224,66 @@ pub struct FitJob {
     pub seed: u64,
 }
 
-/// A point and the metrics of its finished replicates.
-type Finished<'a> = (&'a PointRecord, Vec<&'a BTreeMap<String, f64>>);
-
 /// Per-point sample of one quantity: (point index, unit-cube input, replicate values).
 type Samples = Vec<(u64, Vec<f64>, Vec<f64>)>;
 
-/// Every quantity to fit: each metric seen in a finished evaluation, and the
-/// calibration discrepancy when there is no objective metric.
-fn samples(
-    spec: &Spec,
-    points: &[PointRecord],
-    evals: &[EvaluationRecord],
-) -> BTreeMap<String, Samples> {
-    let by_id: BTreeMap<i64, &PointRecord> = points.iter().map(|p| (p.id, p)).collect();
-    // Finished replicates of each point, in point order.
-    let mut per_point: BTreeMap<u64, Finished<'_>> = BTreeMap::new();
-    for e in evals.iter().filter(|e| e.status == EvalStatus::Done) {
-        let Some(p) = by_id.get(&e.point_id) else {
+/// The name of the surrogate of the failure rate: the share of a point's
+/// runs that failed for good (fitted once any run has failed).
+pub const FAILURE_RATE: &str = "failure rate";
+
+/// Per-point results from the stored points and evaluations, in point order.
+pub fn point_results(points: &[PointRecord], evals: &[EvaluationRecord]) -> Vec<PointResults> {
+    let mut by_id: BTreeMap<i64, PointResults> = points
+        .iter()
+        .map(|p| {
+            (
+                p.id,
+                PointResults {
+                    point_id: p.id,
+                    idx: p.idx,
+                    values: p.values.clone(),
+                    replicates: Vec::new(),
+                    failed: 0,
+                },
+            )
+        })
+        .collect();
+    for e in evals {
+        let Some(p) = by_id.get_mut(&e.point_id) else {
             continue;
         };
-        if p.values.len() != spec.dimension() {
-            continue;
+        match e.status {
+            EvalStatus::Done => p.replicates.push(e.metrics.clone()),
+            EvalStatus::Failed => p.failed += 1,
+            EvalStatus::Queued => {}
         }
-        per_point
-            .entry(p.idx)
-            .or_insert((p, Vec::new()))
-            .1
-            .push(&e.metrics);
     }
+    let mut out: Vec<PointResults> = by_id.into_values().collect();
+    out.sort_by_key(|p| p.idx);
+    out
+}
+
+/// Every quantity to fit: each metric seen in a finished evaluation, the
+/// calibration discrepancy when there is no objective metric, and the
+/// failure rate once a run has failed.
+fn samples(spec: &Spec, results: &[PointResults]) -> BTreeMap<String, Samples> {
     let mut names: BTreeSet<String> = BTreeSet::new();
-    for (_, reps) in per_point.values() {
-        for m in reps {
+    for p in results {
+        for m in &p.replicates {
             names.extend(m.keys().cloned());
         }
     }
     let discrepancy = spec.objective.is_none() && !spec.targets.is_empty();
+    let any_failed = results.iter().any(|p| p.failed > 0);
     let mut out: BTreeMap<String, Samples> = BTreeMap::new();
-    for (idx, (p, reps)) in &per_point {
+    for p in results {
+        if p.values.len() != spec.dimension() {
+            continue;
+        }
         let u = spec.to_unit(&p.values);
         for name in &names {
-            let v: Vec<f64> = reps
+            let v: Vec<f64> = p
+                .replicates
                 .iter()
                 .filter_map(|m| m.get(name).copied())
                 .filter(|v| v.is_finite())
@@ -271,11 +291,12 @@ fn samples(
             if !v.is_empty() {
                 out.entry(name.clone())
                     .or_default()
-                    .push((*idx, u.clone(), v));
+                    .push((p.idx, u.clone(), v));
             }
         }
         if discrepancy {
-            let v: Vec<f64> = reps
+            let v: Vec<f64> = p
+                .replicates
                 .iter()
                 .filter_map(|m| spec.loss(m))
                 .filter(|v| v.is_finite())
@@ -283,8 +304,16 @@ fn samples(
             if !v.is_empty() {
                 out.entry(spec.objective_label())
                     .or_default()
-                    .push((*idx, u.clone(), v));
+                    .push((p.idx, u.clone(), v));
             }
+        }
+        let finals = p.replicates.len() as u32 + p.failed;
+        if any_failed && finals > 0 {
+            out.entry(FAILURE_RATE.to_string()).or_default().push((
+                p.idx,
+                u.clone(),
+                vec![f64::from(p.failed) / f64::from(finals)],
+            ));
         }
     }
     out
@@ -359,8 +388,13 @@ pub fn jobs(
     evals: &[EvaluationRecord],
     seed: u64,
 ) -> Vec<FitJob> {
+    jobs_from_results(spec, &point_results(points, evals), seed)
+}
+
+/// [`jobs`] from per-point results (as the scheduler keeps them).
+pub fn jobs_from_results(spec: &Spec, results: &[PointResults], seed: u64) -> Vec<FitJob> {
     let params: Vec<String> = spec.params.iter().map(|p| p.name.clone()).collect();
-    samples(spec, points, evals)
+    samples(spec, results)
         .into_iter()
         .filter_map(|(metric, s)| {
             if s.len() < MIN_POINTS {
@@ -381,13 +415,21 @@ pub fn jobs(
         .collect()
 }
 
-/// Fits one job. A failed fit is logged and gives `None`.
+/// Fits one job with the default options (its own seed, 1 + 5 starts). A
+/// failed fit is logged and gives `None`.
 pub fn run_job(job: &FitJob) -> Option<MetricFit> {
-    let opts = FitOptions {
-        seed: job.seed,
-        ..FitOptions::default()
-    };
-    let gp = match gp::fit(&job.obs, &opts) {
+    run_job_with(
+        job,
+        &FitOptions {
+            seed: job.seed,
+            ..FitOptions::default()
+        },
+    )
+}
+
+/// Fits one job with `opts` (for example warm-started from a previous fit).
+pub fn run_job_with(job: &FitJob, opts: &FitOptions) -> Option<MetricFit> {
+    let gp = match gp::fit(&job.obs, opts) {
         Ok(g) => g,
         Err(e) => {
             tracing::warn!(metric = %job.metric, error = %e, "surrogate fit failed");

@@ -1,105 +1,209 @@
-//! The planner: after the initial design, fit a Gaussian process to the
-//! objective and propose the next batch of points.
+//! The planner: after the initial design, fit the objective's surrogate and
+//! propose the next batch of points.
 //!
-//! Each point's objective is the mean loss over its finished replicates
-//! (see `Spec::loss`), with the variance of that mean as known noise
-//! (stochastic kriging). Proposals maximise expected improvement
-//! (`strategy = "improve"`) or the predictive sd (`strategy = "explore"`),
-//! in batches by kriging believer, away from points already in the sweep.
-//! With too little data, or if the fit fails, the planner falls back to
-//! seeded uniform points and logs why.
+//! The objective's surrogate is the same fit the queries serve: the fitter's
+//! data and noise rule ([`fitter::jobs_from_results`]) for the objective
+//! metric (or the calibration discrepancy), so what `predict` and
+//! `check-fit` show is what chose the points. Refits are warm-started from
+//! the previous hyperparameters (one start) and only every
+//! [`FULL_SEARCH_EVERY`] rounds, or when the data grew by a quarter, search
+//! afresh from six starts.
+//!
+//! Proposals maximise expected improvement (`strategy = "improve"`) or the
+//! reduction of the integrated variance (`strategy = "explore"`), weighted
+//! by the probability that a run succeeds once runs have failed (a
+//! surrogate of the failure rate, see [`fitter::FAILURE_RATE`]); see
+//! `tessera_surrogate::acquisition`. With too little data, or if the fit
+//! fails, the planner proposes seeded uniform points and says why.
 
-use crate::spec::{Spec, Strategy};
+use crate::fitter::{self, MetricFit};
+use crate::spec::{Direction, Spec, Strategy};
 use crate::status::PointResults;
+use crate::store::{NewPoint, PointOrigin, ProposalInfo};
 use rand::{Rng, SeedableRng};
-use tessera_surrogate::acquisition;
-use tessera_surrogate::gp::{self, FitOptions, Observations};
+use tessera_surrogate::acquisition::{self, Context};
+use tessera_surrogate::gp::{FitOptions, Hyper};
 
-/// Fewest points with results before a surrogate is fitted.
-pub const MIN_POINTS_FOR_FIT: usize = 3;
+/// Fewest points with results before the objective gets a surrogate (the
+/// same minimum as every metric's).
+pub const MIN_POINTS_FOR_FIT: usize = fitter::MIN_POINTS;
 
-/// Per-point objective data in the unit cube.
-pub fn objective_observations(spec: &Spec, results: &[PointResults]) -> Observations {
-    let mut obs = Observations {
-        x: Vec::new(),
-        y: Vec::new(),
-        noise_var: Vec::new(),
-    };
-    for p in results {
-        let losses: Vec<f64> = p
-            .replicates
+/// A full hyperparameter search (six starts) every this many rounds; warm
+/// starts in between (our choice; see docs/benchmarks.md for the cost).
+pub const FULL_SEARCH_EVERY: u32 = 8;
+
+/// What one planning round produced.
+#[derive(Debug, Default)]
+pub struct Plan {
+    /// The new points.
+    pub points: Vec<NewPoint>,
+    /// The objective's surrogate that chose them (stored and served as the
+    /// objective metric's fit).
+    pub objective_fit: Option<MetricFit>,
+    /// The largest acquisition value of the round (expected improvement in
+    /// the objective's unit for `improve`).
+    pub best_acquisition: Option<f64>,
+}
+
+/// The planner's memory between rounds.
+#[derive(Debug, Default)]
+pub struct Planner {
+    last: Option<Hyper>,
+    rounds: u32,
+    points_at_full_search: usize,
+}
+
+impl Planner {
+    /// A planner with no history (the first round searches afresh).
+    pub fn new() -> Self {
+        Planner::default()
+    }
+
+    /// Proposes `q` new points (natural units) after the points in `results`
+    /// (finished replicates per point) and `pending` (points still running,
+    /// natural units). `batch` is stored with the points; `seed` fixes the
+    /// search.
+    pub fn plan(
+        &mut self,
+        spec: &Spec,
+        results: &[PointResults],
+        pending: &[Vec<f64>],
+        q: usize,
+        batch: u32,
+        seed: u64,
+    ) -> Plan {
+        let origin = match spec.strategy {
+            Strategy::Improve => PointOrigin::Improve,
+            Strategy::Explore => PointOrigin::Explore,
+        };
+        let objective = spec.objective_metric();
+        let jobs = fitter::jobs_from_results(spec, results, spec.seed);
+        let Some(job) = jobs.iter().find(|j| j.metric == objective) else {
+            tracing::info!(
+                points = results.iter().filter(|p| !p.replicates.is_empty()).count(),
+                "too few results for a surrogate of the objective; proposing uniform points"
+            );
+            return uniform(
+                spec,
+                q,
+                origin,
+                batch,
+                seed,
+                "too few results for a surrogate",
+            );
+        };
+        let n = job.obs.y.len();
+        let full = self.last.is_none()
+            || self.rounds.is_multiple_of(FULL_SEARCH_EVERY)
+            || n * 4 >= self.points_at_full_search * 5;
+        let opts = FitOptions {
+            seed: job.seed,
+            restarts: if full { 5 } else { 0 },
+            start: if full { None } else { self.last.clone() },
+            ..FitOptions::default()
+        };
+        self.rounds += 1;
+        let Some(fit) = fitter::run_job_with(job, &opts) else {
+            return uniform(spec, q, origin, batch, seed, "the surrogate fit failed");
+        };
+        if full {
+            self.points_at_full_search = n;
+        }
+        self.last = Some(fit.gp.hyper().clone());
+        let maximise = matches!(&spec.objective, Some(o) if o.direction == Direction::Maximize);
+        let loss_gp = if maximise {
+            fit.gp.negated()
+        } else {
+            fit.gp.clone()
+        };
+        let failure = jobs
             .iter()
-            .filter_map(|m| spec.loss(m))
-            .filter(|v| v.is_finite())
+            .find(|j| j.metric == fitter::FAILURE_RATE)
+            .and_then(|j| {
+                fitter::run_job_with(
+                    j,
+                    &FitOptions {
+                        seed: j.seed,
+                        restarts: 1,
+                        ..FitOptions::default()
+                    },
+                )
+            });
+        // Points that only failed are kept away from; running ones are believed.
+        let avoid: Vec<Vec<f64>> = results
+            .iter()
+            .filter(|p| p.replicates.is_empty() && p.failed > 0)
+            .map(|p| spec.to_unit(&p.values))
             .collect();
-        if losses.is_empty() {
-            continue;
-        }
-        let (mean, var_of_mean) = mean_and_var_of_mean(&losses);
-        obs.x.push(spec.to_unit(&p.values));
-        obs.y.push(mean);
-        obs.noise_var.push(var_of_mean);
-    }
-    obs
-}
-
-/// Mean of `v` and the variance of that mean (sample variance / n; 0 for one value).
-pub fn mean_and_var_of_mean(v: &[f64]) -> (f64, f64) {
-    let n = v.len() as f64;
-    let mean = v.iter().sum::<f64>() / n;
-    if v.len() < 2 {
-        return (mean, 0.0);
-    }
-    let var = v.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (n - 1.0);
-    (mean, var / n)
-}
-
-/// Proposes `q` new points (natural units).
-pub fn propose(
-    spec: &Spec,
-    results: &[PointResults],
-    unfinished: &[Vec<f64>],
-    q: usize,
-    seed: u64,
-) -> Vec<Vec<f64>> {
-    let obs = objective_observations(spec, results);
-    let d = spec.params.len();
-    let mut avoid: Vec<Vec<f64>> = results.iter().map(|p| spec.to_unit(&p.values)).collect();
-    avoid.extend(unfinished.iter().map(|v| spec.to_unit(v)));
-    if obs.y.len() < MIN_POINTS_FOR_FIT {
-        tracing::info!(
-            points = obs.y.len(),
-            "too few results for a surrogate; proposing uniform points"
+        let running: Vec<Vec<f64>> = pending.iter().map(|v| spec.to_unit(v)).collect();
+        let snap = |u: &[f64]| spec.to_unit(&spec.to_natural(u));
+        let ctx = Context {
+            avoid: &avoid,
+            pending: &running,
+            failure: failure.as_ref().map(|f| &f.gp),
+            snap: Some(&snap),
+        };
+        let strategy = match spec.strategy {
+            Strategy::Improve => acquisition::Strategy::Improve,
+            Strategy::Explore => acquisition::Strategy::Explore,
+        };
+        let proposals = acquisition::propose(&loss_gp, strategy, q, &ctx, seed);
+        let surrogate = format!(
+            "{} from {} results at {} points ({}; round {})",
+            fit.metric,
+            fit.n_results,
+            fit.n_points,
+            if full { "full search" } else { "warm start" },
+            self.rounds
         );
-        return uniform(spec, d, q, seed);
-    }
-    let opts = FitOptions {
-        seed,
-        ..FitOptions::default()
-    };
-    let fitted = match gp::fit(&obs, &opts) {
-        Ok(g) => g,
-        Err(e) => {
-            tracing::warn!(error = %e, "surrogate fit failed; proposing uniform points");
-            return uniform(spec, d, q, seed);
+        let best_acquisition = proposals
+            .iter()
+            .map(|p| p.acquisition)
+            .fold(None, |m: Option<f64>, a| Some(m.map_or(a, |b| b.max(a))));
+        let points = proposals
+            .into_iter()
+            .map(|p| NewPoint {
+                values: spec.to_natural(&p.x),
+                origin,
+                batch,
+                proposal: Some(ProposalInfo {
+                    acquisition: p.acquisition,
+                    predicted_mean: if maximise { -p.mean } else { p.mean },
+                    predicted_sd: p.sd,
+                    surrogate: surrogate.clone(),
+                }),
+            })
+            .collect();
+        Plan {
+            points,
+            objective_fit: Some(fit),
+            best_acquisition,
         }
-    };
-    let strategy = match spec.strategy {
-        Strategy::Improve => acquisition::Strategy::Improve,
-        Strategy::Explore => acquisition::Strategy::Explore,
-    };
-    acquisition::propose(&fitted, strategy, q, &avoid, seed)
-        .iter()
-        .map(|u| spec.to_natural(u))
-        .collect()
+    }
 }
 
-fn uniform(spec: &Spec, d: usize, q: usize, seed: u64) -> Vec<Vec<f64>> {
+fn uniform(spec: &Spec, q: usize, origin: PointOrigin, batch: u32, seed: u64, why: &str) -> Plan {
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
-    (0..q)
+    let d = spec.dimension();
+    let points = (0..q)
         .map(|_| {
             let u: Vec<f64> = (0..d).map(|_| rng.random::<f64>()).collect();
-            spec.to_natural(&u)
+            NewPoint {
+                values: spec.to_natural(&u),
+                origin,
+                batch,
+                proposal: Some(ProposalInfo {
+                    acquisition: f64::NAN,
+                    predicted_mean: f64::NAN,
+                    predicted_sd: f64::NAN,
+                    surrogate: format!("none ({why}): a uniform random point"),
+                }),
+            }
         })
-        .collect()
+        .collect();
+    Plan {
+        points,
+        objective_fit: None,
+        best_acquisition: None,
+    }
 }

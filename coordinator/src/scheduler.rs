@@ -10,7 +10,7 @@
 //! It does no I/O of its own and holds no async state, so every rule can be
 //! tested with plain function calls and chosen instants (every method takes `now`).
 
-use crate::spec::Spec;
+use crate::spec::{Spec, DEFAULT_REPRODUCIBLE_BATCH};
 use crate::status::{best_point, group_reason, BestPoint, PointResults, SweepStatus, WorkerStatus};
 use crate::store::{CommitResult, EvalStatus, EvaluationRecord, PointRecord};
 use std::collections::{BTreeMap, HashMap, HashSet, VecDeque};
@@ -200,6 +200,12 @@ pub struct Scheduler {
     failed: u64,
     failures: BTreeMap<String, u64>,
     planning: bool,
+    /// Each batch waits for every result before it.
+    reproducible: bool,
+    /// Why no more points will be proposed before the budget, if so.
+    stop_reason: Option<String>,
+    /// The batch number of the next planning round (the design is batch 0).
+    next_batch: u32,
 }
 
 impl Scheduler {
@@ -229,6 +235,9 @@ impl Scheduler {
             failed: 0,
             failures: BTreeMap::new(),
             planning: false,
+            reproducible: false,
+            stop_reason: None,
+            next_batch: 1,
         };
         s.add_points(points);
         let mut evals: Vec<&EvaluationRecord> = evaluations.iter().collect();
@@ -243,11 +252,13 @@ impl Scheduler {
     /// [`Scheduler::add_evaluation`]).
     pub fn add_points(&mut self, points: &[PointRecord]) {
         for p in points {
+            self.next_batch = self.next_batch.max(p.batch + 1);
             if !self.points.contains_key(&p.id) {
                 self.point_ids_in_order.push(p.id);
             }
             self.points.entry(p.id).or_insert_with(|| PointResults {
                 point_id: p.id,
+                idx: p.idx,
                 values: p.values.clone(),
                 replicates: Vec::new(),
                 failed: 0,
@@ -612,42 +623,84 @@ impl Scheduler {
         self.points.len()
     }
 
-    /// True when every point of the budget exists and every evaluation is final.
+    /// True when every evaluation is final and no more points will come
+    /// (the budget is used, or the sweep was stopped early).
     pub fn finished(&self) -> bool {
-        self.points.len() as u64 >= u64::from(self.spec.budget) && self.pending.is_empty()
+        self.pending.is_empty()
+            && (self.points.len() as u64 >= u64::from(self.spec.budget)
+                || self.stop_reason.is_some())
+    }
+
+    /// Sets whether each batch waits for every result before it.
+    pub fn set_reproducible(&mut self, on: bool) {
+        self.reproducible = on;
+    }
+
+    /// Whether batches wait for every earlier result.
+    pub fn reproducible(&self) -> bool {
+        self.reproducible
+    }
+
+    /// Stops proposing before the budget (the reason shows in `status`).
+    pub fn stop(&mut self, reason: String) {
+        self.stop_reason = Some(reason);
+    }
+
+    /// The batch number the next planning round gets.
+    pub fn next_batch(&self) -> u32 {
+        self.next_batch
     }
 
     /// Whether the planner should propose points now, and how many.
     ///
-    /// It plans when the queue is empty (so workers would otherwise idle),
-    /// the budget is not used up, no plan is under way, and at least one
-    /// point has a finished replicate to learn from.
+    /// Reproducible sweeps plan a batch (`batch`, default
+    /// [`DEFAULT_REPRODUCIBLE_BATCH`]) when every evaluation so far is final.
+    /// Otherwise the planner keeps ahead of the workers: once half the
+    /// initial design has results, it plans whenever fewer evaluations wait
+    /// in the queue than the connected workers have slots, so that a worker
+    /// finds the next point ready (as many points as fill the shortfall, or
+    /// `batch`).
     pub fn wants_plan(&self) -> Option<usize> {
-        if self.planning || !self.queue.is_empty() {
+        if self.planning || self.stop_reason.is_some() {
             return None;
         }
         let left = u64::from(self.spec.budget).saturating_sub(self.points.len() as u64) as usize;
         if left == 0 {
             return None;
         }
-        let learned = self
-            .points
-            .values()
-            .filter(|p| !p.replicates.is_empty())
-            .count();
-        if learned == 0 && !self.pending.is_empty() {
-            return None;
-        }
-        let free_slots: u32 = self
-            .workers
-            .values()
-            .filter(|w| !w.left)
-            .map(|w| w.info.slots.saturating_sub(w.running.len() as u32))
-            .sum();
         let reps = self.spec.replicates.max(1) as usize;
-        let by_slots = (free_slots as usize).div_ceil(reps).max(1);
-        let q = self.spec.batch.map_or(by_slots, |b| b as usize).max(1);
-        Some(q.min(left))
+        let q = if self.reproducible {
+            if !self.pending.is_empty() {
+                return None;
+            }
+            self.spec.batch.unwrap_or(DEFAULT_REPRODUCIBLE_BATCH) as usize
+        } else {
+            let learned = self
+                .points
+                .values()
+                .filter(|p| !p.replicates.is_empty())
+                .count();
+            let initial = (self.spec.initial as usize).min(self.points.len());
+            let enough = (initial / 2)
+                .max(crate::fitter::MIN_POINTS)
+                .min(initial.max(1));
+            if learned < enough && !self.pending.is_empty() {
+                return None;
+            }
+            let slots: usize = self
+                .workers
+                .values()
+                .filter(|w| !w.left)
+                .map(|w| w.info.slots as usize)
+                .sum::<usize>()
+                .max(1);
+            if self.queue.len() >= slots {
+                return None;
+            }
+            let shortfall = (slots - self.queue.len()).div_ceil(reps);
+            self.spec.batch.map_or(shortfall, |b| b as usize)
+        };
+        Some(q.clamp(1, left))
     }
 
     /// Marks a plan as under way (or finished).

@@ -83,6 +83,8 @@ pub struct SweepStatus {
 pub struct PointResults {
     /// Point row id.
     pub point_id: i64,
+    /// Index of the point within the sweep (0 for the first).
+    pub idx: u64,
     /// Values in natural units, in spec parameter order.
     pub values: Vec<f64>,
     /// Metrics of each finished replicate.

@@ -94,6 +94,7 @@ fn add_results(s: &mut Sweep, points: &[Vec<f64>], metrics: &mut MetricsOf<'_>) 
             values: v.clone(),
             origin: PointOrigin::Design,
             batch: 0,
+            proposal: None,
         })
         .collect();
     let reps = s.spec.replicates;
@@ -470,6 +471,7 @@ async fn predict_over_grpc_on_a_running_coordinator() {
         spec_file: "sweep.toml".into(),
         force: false,
         times: Default::default(),
+        reproducible_default: false,
     })
     .expect("open engine");
     let service = CoordinatorService::new(engine.clone());

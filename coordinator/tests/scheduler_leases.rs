@@ -39,6 +39,7 @@ fn scheduler() -> Scheduler {
             values: vec![i as f64, 1.0],
             origin: PointOrigin::Design,
             batch: 0,
+            proposal: None,
         })
         .collect();
     let evals: Vec<EvaluationRecord> = (0..4)

@@ -18,6 +18,7 @@ fn points(n: usize, origin: PointOrigin, batch: u32) -> Vec<NewPoint> {
             values: vec![i as f64 + 0.25, 10.0 * i as f64],
             origin,
             batch,
+            proposal: None,
         })
         .collect()
 }

@@ -131,6 +131,7 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
         spec_file: args.spec.display().to_string(),
         force: args.force,
         times: LeaseTimes::default(),
+        reproducible_default: true,
     })?;
     let spec = engine.spec().clone();
     let n = match args.workers {

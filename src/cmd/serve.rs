@@ -110,6 +110,7 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
             lease,
             renew_every: lease / 3,
         },
+        reproducible_default: false,
     })?;
     let rt = tokio::runtime::Runtime::new().context("cannot start the async runtime")?;
     rt.block_on(async move {

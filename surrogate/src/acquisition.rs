@@ -1,9 +1,33 @@
-//! Acquisition: expected improvement for minimisation (Jones, Schonlau &
-//! Welch 1998) and the choice of new points from a fitted surrogate.
+//! Acquisition: where to run next, from a fitted surrogate.
+//!
+//! - [`Strategy::Improve`]: expected improvement for minimisation (Jones,
+//!   Schonlau & Welch 1998) over the best *predicted* mean at the sampled
+//!   points, the plug-in variant that stays sound when observations are
+//!   noisy (Picheny, Wagner & Ginsbourger 2013, "A benchmark of kriging-based
+//!   infill criteria for noisy optimization", Struct. Multidisc. Optim.
+//!   48:607-626).
+//! - [`Strategy::Explore`]: the largest reduction of the integrated predictive
+//!   variance over the box (the ALC criterion of Cohn 1996, used for GP
+//!   designs by Gramacy & Lee 2009), so that a trend map improves evenly
+//!   instead of piling points on the faces of the box, where the predictive
+//!   sd alone is largest.
+//!
+//! Both are weighted by the probability that a run succeeds, when a model of
+//! failures is given (expected improvement times the probability of
+//! feasibility: Schonlau, Welch & Jones 1998; Gardner et al. 2014).
+//!
+//! The search: a few thousand space-filling candidates (and, for Improve,
+//! perturbations of the best sampled points), then local optimisation from
+//! the best few: projected gradient ascent with the analytic gradients of
+//! the GP mean and sd for Improve, a shrinking random search for Explore.
+//! Batches of q points use the kriging believer (Ginsbourger, Le Riche &
+//! Carraro 2010). Deterministic given the seed.
 
+use rand::seq::SliceRandom;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::StandardNormal;
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::gp::Gp;
@@ -65,165 +89,407 @@ pub fn expected_improvement(f_best: f64, mu: f64, sigma: f64) -> f64 {
 /// What [`propose`] looks for.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 pub enum Strategy {
-    /// Maximise expected improvement for minimisation of the GP's output,
-    /// with f_best the smallest observed value.
+    /// Maximise expected improvement for minimisation of the GP's output.
     Improve,
-    /// Maximise the predictive standard deviation of f (map the response
-    /// rather than optimise it).
+    /// Maximise the reduction of the integrated predictive variance.
     Explore,
 }
 
-/// Random candidates scored per proposed point.
-const N_CANDIDATES: usize = 3000;
-/// Candidates drawn around each of the best observed points (Improve only).
-const N_LOCAL: usize = 100;
-/// Starts and rounds of the local refinement, and points per round.
-const REFINE_STARTS: usize = 4;
-const REFINE_ROUNDS: usize = 20;
-const REFINE_BATCH: usize = 24;
+/// Maps a point of the unit cube to the nearest point the sweep can run.
+pub type Snap<'a> = &'a (dyn Fn(&[f64]) -> Vec<f64> + Sync);
 
-/// Propose `q` new points in the unit cube for `gp` (Jones, Schonlau &
-/// Welch 1998 for [`Strategy::Improve`]; largest predictive sd for
-/// [`Strategy::Explore`]). Batches use the kriging believer (Ginsbourger,
-/// Le Riche & Carraro 2010): after each choice the GP is conditioned on its
-/// own prediction there, same hyperparameters, and the next point is chosen.
+/// A criterion with its gradient at a point.
+type WithGradient<'a> = &'a dyn Fn(&[f64]) -> (f64, Vec<f64>);
+
+/// Everything but the objective surrogate that a proposal depends on.
+#[derive(Clone, Copy, Default)]
+pub struct Context<'a> {
+    /// Points already in the sweep but not in the surrogate (still running,
+    /// or failed): proposals keep away from them.
+    pub avoid: &'a [Vec<f64>],
+    /// Points still running: before proposing, the surrogate is conditioned
+    /// on its own prediction at each (kriging believer), so new points are
+    /// chosen as if their results were in.
+    pub pending: &'a [Vec<f64>],
+    /// A GP of the failure rate over the box: P(fail) is its mean clamped to
+    /// [0, 1]. Acquisitions are weighted by 1 - P(fail).
+    pub failure: Option<&'a Gp>,
+    /// Maps a point of the unit cube to the nearest point the sweep can
+    /// run (the centre of an integer parameter's cell).
+    pub snap: Option<Snap<'a>>,
+}
+
+impl std::fmt::Debug for Context<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Context")
+            .field("avoid", &self.avoid.len())
+            .field("pending", &self.pending.len())
+            .field("failure", &self.failure.is_some())
+            .field("snap", &self.snap.is_some())
+            .finish()
+    }
+}
+
+/// One proposed point and what the surrogate believed there.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Proposal {
+    /// The point, in the unit cube.
+    pub x: Vec<f64>,
+    /// The acquisition value that chose it (expected improvement, or the
+    /// integrated-variance reduction, times the probability of success).
+    pub acquisition: f64,
+    /// Predicted mean of the objective there.
+    pub mean: f64,
+    /// Predictive sd of the objective there.
+    pub sd: f64,
+    /// Predicted probability that a run fails there (0 without a failure model).
+    pub p_fail: f64,
+}
+
+/// Space-filling candidates per proposed point.
+const N_CANDIDATES: usize = 2048;
+/// Best sampled points around which local candidates are drawn (Improve).
+const N_INCUMBENTS: usize = 8;
+/// Local candidates per incumbent and scale.
+const N_LOCAL: usize = 32;
+/// Local optimisations per proposed point.
+const N_STARTS: usize = 8;
+/// Steps of projected gradient ascent.
+const GRADIENT_STEPS: usize = 60;
+/// Rounds of the random local search (Explore) and trial points per round.
+const SEARCH_ROUNDS: usize = 15;
+const SEARCH_BATCH: usize = 12;
+/// Reference points for the integrated variance (Monte Carlo over the box).
+const N_REFERENCE: usize = 256;
+
+/// P(fail) at `x` and its gradient, from the failure GP.
+fn failure_at(failure: Option<&Gp>, x: &[f64]) -> (f64, Vec<f64>) {
+    let d = x.len();
+    match failure {
+        None => (0.0, vec![0.0; d]),
+        Some(g) => {
+            let p = g.predict_gradient(x);
+            if p.mean <= 0.0 {
+                (0.0, vec![0.0; d])
+            } else if p.mean >= 1.0 {
+                (1.0, vec![0.0; d])
+            } else {
+                (p.mean, p.d_mean)
+            }
+        }
+    }
+}
+
+fn p_fail_many(failure: Option<&Gp>, pts: &[Vec<f64>]) -> Vec<f64> {
+    match failure {
+        None => vec![0.0; pts.len()],
+        Some(g) => g
+            .predict_mean(pts)
+            .into_iter()
+            .map(|m| m.clamp(0.0, 1.0))
+            .collect(),
+    }
+}
+
+fn dist2(a: &[f64], b: &[f64]) -> f64 {
+    a.iter().zip(b).map(|(u, v)| (u - v) * (u - v)).sum()
+}
+
+/// A Latin hypercube of `n` points in `d` dimensions (not optimised: the
+/// candidates only need to cover the box).
+fn lhs(n: usize, d: usize, rng: &mut ChaCha8Rng) -> Vec<Vec<f64>> {
+    let mut pts = vec![vec![0.0; d]; n];
+    let mut perm: Vec<usize> = (0..n).collect();
+    for k in 0..d {
+        perm.shuffle(rng);
+        for (row, &s) in pts.iter_mut().zip(&perm) {
+            row[k] = (s as f64 + rng.random::<f64>()) / n as f64;
+        }
+    }
+    pts
+}
+
+fn gauss(rng: &mut ChaCha8Rng) -> f64 {
+    rng.sample(StandardNormal)
+}
+
+/// Expected improvement times the probability of success, and its gradient.
+fn improve_value(gp: &Gp, failure: Option<&Gp>, f_best: f64, x: &[f64]) -> (f64, Vec<f64>) {
+    let p = gp.predict_gradient(x);
+    let ei = expected_improvement(f_best, p.mean, p.sd);
+    let (pf, dpf) = failure_at(failure, x);
+    let w = 1.0 - pf;
+    let mut g = vec![0.0; x.len()];
+    if p.sd > 0.0 {
+        let z = (f_best - p.mean) / p.sd;
+        let (cdf, pdf) = (normal_cdf(z), normal_pdf(z));
+        for j in 0..x.len() {
+            let dei = -cdf * p.d_mean[j] + pdf * p.d_sd[j];
+            g[j] = dei * w - ei * dpf[j];
+        }
+    }
+    (ei * w, g)
+}
+
+/// Projected gradient ascent in the unit cube from `x0`, with step halving.
+fn ascend(x0: &[f64], f: WithGradient<'_>) -> (Vec<f64>, f64) {
+    let mut x = x0.to_vec();
+    let (mut fx, mut g) = f(&x);
+    let mut step = 0.05;
+    for _ in 0..GRADIENT_STEPS {
+        let norm = g.iter().map(|v| v * v).sum::<f64>().sqrt();
+        if norm.is_nan() || norm <= 0.0 || step < 1e-7 {
+            break;
+        }
+        let trial: Vec<f64> = x
+            .iter()
+            .zip(&g)
+            .map(|(xi, gi)| (xi + step * gi / norm).clamp(0.0, 1.0))
+            .collect();
+        let (ft, gt) = f(&trial);
+        if ft > fx {
+            x = trial;
+            fx = ft;
+            g = gt;
+            step *= 1.5;
+        } else {
+            step *= 0.5;
+        }
+    }
+    (x, fx)
+}
+
+/// Derivative-free local search in the unit cube from `x0` (shrinking
+/// Gaussian steps), for criteria without a cheap gradient.
+fn search(
+    x0: &[f64],
+    f0: f64,
+    rng: &mut ChaCha8Rng,
+    f: &dyn Fn(&[Vec<f64>]) -> Vec<f64>,
+) -> (Vec<f64>, f64) {
+    let (mut x, mut fx) = (x0.to_vec(), f0);
+    let mut step = 0.05;
+    for _ in 0..SEARCH_ROUNDS {
+        let trial: Vec<Vec<f64>> = (0..SEARCH_BATCH)
+            .map(|_| {
+                x.iter()
+                    .map(|&v| (v + step * gauss(rng)).clamp(0.0, 1.0))
+                    .collect()
+            })
+            .collect();
+        let vals = f(&trial);
+        let mut improved = false;
+        for (t, v) in trial.into_iter().zip(vals) {
+            if v > fx {
+                x = t;
+                fx = v;
+                improved = true;
+            }
+        }
+        if !improved {
+            step *= 0.5;
+        }
+    }
+    (x, fx)
+}
+
+/// Propose `q` new points in the unit cube for `gp` (see the module docs).
 ///
-/// Search: a few thousand seeded uniform candidates (plus, for Improve,
-/// Gaussian perturbations of the best observed points), then a shrinking
-/// random local search from the best few. Every point keeps a minimum
-/// distance, sep = 0.1 sqrt(d) (n + q)^(-1/d) (our heuristic, common
-/// practice, no source), from `avoid`, the observed points and the other
-/// proposals. Deterministic given the seed. If nothing satisfies the distance
-/// (a crowded cube), the best candidate is taken regardless.
+/// Every point keeps a minimum distance sep = 0.05 sqrt(d) (n + q)^(-1/d)
+/// (our heuristic, common practice, no source) from the sampled points,
+/// `ctx.avoid` and the other proposals; if nothing satisfies it (a crowded
+/// cube), the best candidate is taken regardless.
 #[track_caller]
 pub fn propose(
     gp: &Gp,
     strategy: Strategy,
     q: usize,
-    avoid: &[Vec<f64>],
+    ctx: &Context<'_>,
     seed: u64,
-) -> Vec<Vec<f64>> {
+) -> Vec<Proposal> {
     let d = gp.dim();
     assert!(
-        avoid.iter().all(|p| p.len() == d),
+        ctx.avoid.iter().all(|p| p.len() == d),
         "avoid points must have dimension {d}"
     );
     if q == 0 {
         return Vec::new();
     }
     if d == 0 {
-        return vec![Vec::new(); q];
+        return vec![
+            Proposal {
+                x: Vec::new(),
+                acquisition: 0.0,
+                mean: gp.predict_mean(&[Vec::new()])[0],
+                sd: 0.0,
+                p_fail: 0.0,
+            };
+            q
+        ];
     }
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let observed = gp.observed_x();
-    let observed_y = gp.observed_y();
-    let mut f_best = observed_y.iter().copied().fold(f64::INFINITY, f64::min);
-    let sep = 0.1 * (d as f64).sqrt() * ((observed.len() + q) as f64).powf(-1.0 / d as f64);
-    let mut blocked: Vec<Vec<f64>> = avoid.iter().chain(observed.iter()).cloned().collect();
-    // Best observed points, for local candidates.
-    let mut order: Vec<usize> = (0..observed_y.len()).collect();
-    order.sort_by(|&a, &b| observed_y[a].total_cmp(&observed_y[b]));
+    let sep = 0.05 * (d as f64).sqrt() * ((observed.len() + q) as f64).powf(-1.0 / d as f64);
+    let sep2 = sep * sep;
+    let mut blocked: Vec<Vec<f64>> = ctx.avoid.iter().chain(observed.iter()).cloned().collect();
+    let reference = if strategy == Strategy::Explore {
+        lhs(N_REFERENCE, d, &mut rng)
+    } else {
+        Vec::new()
+    };
+    let snap = |x: Vec<f64>| match ctx.snap {
+        Some(s) => s(&x),
+        None => x,
+    };
     let mut model = gp.clone();
-    let mut out = Vec::with_capacity(q);
-    for _ in 0..q {
-        let mut cands: Vec<Vec<f64>> = (0..N_CANDIDATES)
-            .map(|_| (0..d).map(|_| rng.random::<f64>()).collect())
-            .collect();
-        if strategy == Strategy::Improve {
-            for &i in order.iter().take(5) {
-                for _ in 0..N_LOCAL / 5 {
-                    let p = observed[i]
-                        .iter()
-                        .map(|&v| (v + 0.05 * gauss(&mut rng)).clamp(0.0, 1.0))
-                        .collect();
-                    cands.push(p);
-                }
-            }
-        }
-        let score = |m: &Gp, pts: &[Vec<f64>], f_best: f64| -> Vec<f64> {
-            m.predict(pts)
-                .iter()
-                .map(|p| match strategy {
-                    Strategy::Improve => expected_improvement(f_best, p.mean, p.sd),
-                    Strategy::Explore => p.sd,
-                })
-                .collect()
-        };
-        let mut scores = score(&model, &cands, f_best);
-        // EI can underflow to 0 everywhere far from f_best: fall back to sd.
-        let flat = scores.iter().all(|&s| s <= 0.0);
-        let fallback = |m: &Gp, pts: &[Vec<f64>]| -> Vec<f64> {
-            m.predict(pts).iter().map(|p| p.sd).collect()
-        };
-        if flat {
-            scores = fallback(&model, &cands);
-        }
-        let ok = |p: &[f64], blocked: &[Vec<f64>]| blocked.iter().all(|b| dist(p, b) >= sep);
-        let mut idx: Vec<usize> = (0..cands.len()).collect();
-        idx.sort_by(|&a, &b| scores[b].total_cmp(&scores[a]));
-        let starts: Vec<usize> = idx
-            .iter()
-            .copied()
-            .filter(|&i| ok(&cands[i], &blocked))
-            .take(REFINE_STARTS)
-            .collect();
-        let mut best: Option<(Vec<f64>, f64)> = None;
-        for &s in &starts {
-            let mut cur = cands[s].clone();
-            let mut cur_score = scores[s];
-            let mut step = 0.05;
-            for _ in 0..REFINE_ROUNDS {
-                let trial: Vec<Vec<f64>> = (0..REFINE_BATCH)
-                    .map(|_| {
-                        cur.iter()
-                            .map(|&v| (v + step * gauss(&mut rng)).clamp(0.0, 1.0))
-                            .collect()
-                    })
-                    .collect();
-                let ts = if flat {
-                    fallback(&model, &trial)
-                } else {
-                    score(&model, &trial, f_best)
-                };
-                let mut improved = false;
-                for (t, sc) in trial.into_iter().zip(ts) {
-                    if sc > cur_score && ok(&t, &blocked) {
-                        cur = t;
-                        cur_score = sc;
-                        improved = true;
-                    }
-                }
-                if !improved {
-                    step *= 0.5;
-                }
-            }
-            if best.as_ref().is_none_or(|b| cur_score > b.1) {
-                best = Some((cur, cur_score));
-            }
-        }
-        let chosen = match best {
-            Some((p, _)) => p,
-            None => cands[idx[0]].clone(),
-        };
-        let mu = model.predict(std::slice::from_ref(&chosen))[0].mean;
-        if let Ok(m) = model.update_believer(&chosen, mu) {
+    for p in ctx.pending.iter().filter(|p| p.len() == d) {
+        let mu = model.predict_mean(std::slice::from_ref(p))[0];
+        if let Ok(m) = model.update_believer(p, mu) {
             model = m;
         }
-        f_best = f_best.min(mu);
+    }
+    blocked.extend(ctx.pending.iter().cloned());
+    // Work per proposal shrinks with the batch and the data, so that a
+    // large batch on a large sweep still takes about a second.
+    let n = model.n().max(1) as f64;
+    let budget = 4e9 / (q as f64 * n * n);
+    let n_candidates = (budget as usize).clamp(256, N_CANDIDATES);
+    let n_starts = if n_candidates < N_CANDIDATES {
+        3
+    } else {
+        N_STARTS
+    };
+    let mut out: Vec<Proposal> = Vec::with_capacity(q);
+    for _ in 0..q {
+        let free = |p: &[f64], blocked: &[Vec<f64>]| blocked.iter().all(|b| dist2(p, b) >= sep2);
+        let mut cands = lhs(n_candidates, d, &mut rng);
+        // Plug-in best: the smallest predicted mean at a sampled point.
+        let sampled = model.observed_x();
+        let at_sampled = model.predict_mean(&sampled);
+        let f_best = at_sampled.iter().copied().fold(f64::INFINITY, f64::min);
+        if strategy == Strategy::Improve {
+            let mut order: Vec<usize> = (0..sampled.len()).collect();
+            order.sort_by(|&a, &b| at_sampled[a].total_cmp(&at_sampled[b]));
+            for &i in order.iter().take(N_INCUMBENTS) {
+                for scale in [0.02, 0.1] {
+                    for _ in 0..N_LOCAL {
+                        cands.push(
+                            sampled[i]
+                                .iter()
+                                .map(|&v| (v + scale * gauss(&mut rng)).clamp(0.0, 1.0))
+                                .collect(),
+                        );
+                    }
+                }
+            }
+        }
+        let p_fail = p_fail_many(ctx.failure, &cands);
+        let score_many = |m: &Gp, pts: &[Vec<f64>], pf: &[f64]| -> Vec<f64> {
+            match strategy {
+                Strategy::Improve => m
+                    .predict(pts)
+                    .iter()
+                    .zip(pf)
+                    .map(|(p, f)| expected_improvement(f_best, p.mean, p.sd) * (1.0 - f))
+                    .collect(),
+                Strategy::Explore => m
+                    .integrated_variance_reduction(&reference, pts)
+                    .into_iter()
+                    .zip(pf)
+                    .map(|(v, f)| v * (1.0 - f))
+                    .collect(),
+            }
+        };
+        let mut scores = score_many(&model, &cands, &p_fail);
+        // Expected improvement can underflow to 0 everywhere far from the
+        // best: then the point of largest sd is the most useful.
+        let flat = scores.iter().all(|&s| s <= 0.0);
+        if flat {
+            scores = model
+                .predict(&cands)
+                .iter()
+                .zip(&p_fail)
+                .map(|(p, f)| p.sd * (1.0 - f))
+                .collect();
+        }
+        let mut idx: Vec<usize> = (0..cands.len()).collect();
+        idx.sort_by(|&a, &b| scores[b].total_cmp(&scores[a]));
+        // Distinct starts, away from what is blocked.
+        let mut starts: Vec<usize> = Vec::new();
+        for &i in &idx {
+            if starts.len() == n_starts {
+                break;
+            }
+            if free(&cands[i], &blocked)
+                && starts
+                    .iter()
+                    .all(|&s| dist2(&cands[s], &cands[i]) >= 4.0 * sep2)
+            {
+                starts.push(i);
+            }
+        }
+        let seeds: Vec<u64> = (0..starts.len()).map(|_| rng.random()).collect();
+        let model_ref = &model;
+        let blocked_ref = &blocked;
+        let refined: Vec<(Vec<f64>, f64)> = starts
+            .par_iter()
+            .zip(seeds)
+            .map(|(&s, sd)| {
+                let (x, v) = match (strategy, flat) {
+                    (Strategy::Improve, false) => ascend(&cands[s], &|x| {
+                        improve_value(model_ref, ctx.failure, f_best, x)
+                    }),
+                    _ => {
+                        let mut r = ChaCha8Rng::seed_from_u64(sd);
+                        search(&cands[s], scores[s], &mut r, &|pts| {
+                            let pf = p_fail_many(ctx.failure, pts);
+                            if flat {
+                                model_ref
+                                    .predict(pts)
+                                    .iter()
+                                    .zip(&pf)
+                                    .map(|(p, f)| p.sd * (1.0 - f))
+                                    .collect()
+                            } else {
+                                score_many(model_ref, pts, &pf)
+                            }
+                        })
+                    }
+                };
+                let x = snap(x);
+                if free(&x, blocked_ref) {
+                    (x, v)
+                } else {
+                    (cands[s].clone(), scores[s])
+                }
+            })
+            .collect();
+        let chosen = refined
+            .into_iter()
+            .max_by(|a, b| a.1.total_cmp(&b.1))
+            .map(|(x, _)| x)
+            .unwrap_or_else(|| snap(cands[idx[0]].clone()));
+        // What the surrogate believes at the chosen point (after snapping).
+        let pf = p_fail_many(ctx.failure, std::slice::from_ref(&chosen))[0];
+        let pred = model.predict(std::slice::from_ref(&chosen))[0];
+        let acquisition = match strategy {
+            Strategy::Improve => expected_improvement(f_best, pred.mean, pred.sd) * (1.0 - pf),
+            Strategy::Explore => {
+                model.integrated_variance_reduction(&reference, std::slice::from_ref(&chosen))[0]
+                    * (1.0 - pf)
+            }
+        };
+        if let Ok(m) = model.update_believer(&chosen, pred.mean) {
+            model = m;
+        }
         blocked.push(chosen.clone());
-        out.push(chosen);
+        out.push(Proposal {
+            x: chosen,
+            acquisition,
+            mean: pred.mean,
+            sd: pred.sd,
+            p_fail: pf,
+        });
     }
     out
-}
-
-fn dist(a: &[f64], b: &[f64]) -> f64 {
-    a.iter()
-        .zip(b)
-        .map(|(u, v)| (u - v) * (u - v))
-        .sum::<f64>()
-        .sqrt()
-}
-
-fn gauss(rng: &mut ChaCha8Rng) -> f64 {
-    rng.sample(StandardNormal)
 }

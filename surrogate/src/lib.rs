@@ -20,7 +20,7 @@
 //! let at = model.predict(&[vec![0.3, 0.6]]);
 //! assert!(at[0].mean.abs() < 0.1 && at[0].sd >= 0.0);
 //! // Two new points for two idle workers.
-//! let next = acquisition::propose(&model, acquisition::Strategy::Improve, 2, &[], 1);
+//! let next = acquisition::propose(&model, acquisition::Strategy::Improve, 2, &acquisition::Context::default(), 1);
 //! assert_eq!(next.len(), 2);
 //! # Ok::<(), gp::GpError>(())
 //! ```

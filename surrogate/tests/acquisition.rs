@@ -88,3 +88,102 @@ fn normal_cdf_known_values() {
         );
     }
 }
+
+mod criterion_checks {
+    use tessera_surrogate::gp::{Gp, Hyper, KernelKind, Observations};
+
+    fn one_d() -> Gp {
+        let x: Vec<Vec<f64>> = [0.05, 0.3, 0.42, 0.8].iter().map(|v| vec![*v]).collect();
+        let y = vec![0.3, -0.2, 0.1, 0.7];
+        let h = Hyper {
+            mean: 0.0,
+            signal_var: 1.3,
+            lengthscales: vec![0.2],
+            nugget: 0.01,
+        };
+        Gp::with_hyper(&Observations::new(x, y), KernelKind::Matern52, h, false).expect("gp")
+    }
+
+    /// Simpson's rule for the integral of the posterior variance of f over [0, 1].
+    fn integrated_variance(gp: &Gp) -> f64 {
+        let n = 4000;
+        let pts: Vec<Vec<f64>> = (0..=n).map(|i| vec![i as f64 / n as f64]).collect();
+        let v: Vec<f64> = gp.predict_exact(&pts).iter().map(|p| p.sd * p.sd).collect();
+        let h = 1.0 / n as f64;
+        let mut s = v[0] + v[n];
+        for (i, vi) in v.iter().enumerate().take(n).skip(1) {
+            s += if i % 2 == 1 { 4.0 * vi } else { 2.0 * vi };
+        }
+        s * h / 3.0
+    }
+
+    /// The integrated-variance reduction of a new point equals the drop in
+    /// the numerically integrated posterior variance (Simpson's rule on 4001
+    /// points) when that point is added (with the nugget's noise) to a 1-D GP
+    /// with known hyperparameters: GPML eq. 2.26 before and after.
+    #[test]
+    fn integrated_variance_reduction_matches_numerical_integration() {
+        let gp = one_d();
+        let before = integrated_variance(&gp);
+        let reference: Vec<Vec<f64>> = (0..2000).map(|i| vec![(i as f64 + 0.5) / 2000.0]).collect();
+        for x in [0.0, 0.18, 0.6, 0.95] {
+            let after = integrated_variance(&gp.update_believer(&[x], 0.0).expect("update"));
+            let crit = gp.integrated_variance_reduction(&reference, &[vec![x]])[0];
+            let numeric = before - after;
+            // The criterion averages over 2000 cell midpoints: the midpoint
+            // rule's error, O(h^2) = O(2.5e-7) times the curvature, bounds
+            // the agreement.
+            assert!(
+                (crit - numeric).abs() < 1e-4 * numeric,
+                "x = {x}: criterion {crit}, integration {numeric}"
+            );
+        }
+    }
+
+    /// Analytic gradients of the posterior mean and sd match central finite differences.
+    #[test]
+    fn mean_and_sd_gradients_match_finite_differences() {
+        let x: Vec<Vec<f64>> = vec![
+            vec![0.1, 0.2],
+            vec![0.7, 0.4],
+            vec![0.3, 0.9],
+            vec![0.5, 0.5],
+        ];
+        let y = vec![1.0, -0.5, 0.25, 0.0];
+        for kind in [KernelKind::Matern52, KernelKind::SquaredExponential] {
+            let h = Hyper {
+                mean: 0.1,
+                signal_var: 0.8,
+                lengthscales: vec![0.3, 0.5],
+                nugget: 1e-4,
+            };
+            let gp = Gp::with_hyper(&Observations::new(x.clone(), y.clone()), kind, h, true)
+                .expect("gp");
+            let at = [0.42, 0.61];
+            let g = gp.predict_gradient(&at);
+            let p = gp.predict_exact(&[at.to_vec()])[0];
+            assert!((g.mean - p.mean).abs() < 1e-12 && (g.sd - p.sd).abs() < 1e-10);
+            for j in 0..2 {
+                let e = 1e-6;
+                let mut hi = at.to_vec();
+                let mut lo = at.to_vec();
+                hi[j] += e;
+                lo[j] -= e;
+                let ph = gp.predict_exact(&[hi])[0];
+                let pl = gp.predict_exact(&[lo])[0];
+                let dm = (ph.mean - pl.mean) / (2.0 * e);
+                let ds = (ph.sd - pl.sd) / (2.0 * e);
+                assert!(
+                    (g.d_mean[j] - dm).abs() < 1e-5 * dm.abs().max(1.0),
+                    "{kind:?} mean {j}: {} vs {dm}",
+                    g.d_mean[j]
+                );
+                assert!(
+                    (g.d_sd[j] - ds).abs() < 1e-5 * ds.abs().max(1.0),
+                    "{kind:?} sd {j}: {} vs {ds}",
+                    g.d_sd[j]
+                );
+            }
+        }
+    }
+}

@@ -1,6 +1,6 @@
 //! Checks of `acquisition::propose` on published test functions.
 
-use tessera_surrogate::acquisition::{propose, Strategy};
+use tessera_surrogate::acquisition::{propose, Context, Strategy};
 use tessera_surrogate::design::maximin_lhs;
 use tessera_surrogate::gp::{fit, FitOptions, Observations};
 
@@ -32,10 +32,10 @@ fn branin_reaches_the_minimum_with_expected_improvement() {
             &FitOptions::default(),
         )
         .expect("fit");
-        let p = propose(&gp, Strategy::Improve, 1, &[], round as u64);
+        let p = propose(&gp, Strategy::Improve, 1, &Context::default(), round as u64);
         assert_eq!(p.len(), 1);
-        let v = branin(&p[0]);
-        x.push(p[0].clone());
+        let v = branin(&p[0].x);
+        x.push(p[0].x.clone());
         y.push(v);
         if v - BRANIN_MIN < 0.01 {
             reached = Some(round + 1);
@@ -53,11 +53,16 @@ fn batches_are_in_the_cube_apart_and_deterministic() {
     let y: Vec<f64> = x.iter().map(|p| (3.0 * p[0]).sin() + p[1] * p[2]).collect();
     let gp = fit(&Observations::new(x.clone(), y), &FitOptions::default()).expect("fit");
     let avoid = vec![vec![0.5, 0.5, 0.5]];
+    let ctx = Context {
+        avoid: &avoid,
+        ..Context::default()
+    };
     for strategy in [Strategy::Improve, Strategy::Explore] {
-        let a = propose(&gp, strategy, 5, &avoid, 9);
-        let b = propose(&gp, strategy, 5, &avoid, 9);
+        let a = propose(&gp, strategy, 5, &ctx, 9);
+        let b = propose(&gp, strategy, 5, &ctx, 9);
         assert_eq!(a, b);
         assert_eq!(a.len(), 5);
+        let a: Vec<Vec<f64>> = a.into_iter().map(|p| p.x).collect();
         let all: Vec<&Vec<f64>> = a.iter().chain(avoid.iter()).chain(x.iter()).collect();
         for (i, p) in a.iter().enumerate() {
             assert!(p.iter().all(|v| (0.0..=1.0).contains(v)));
@@ -74,18 +79,28 @@ fn batches_are_in_the_cube_apart_and_deterministic() {
     }
 }
 
+/// Explore reduces the integrated variance more than 99% of random points
+/// would, and does not put its points on the faces of the box (where the
+/// predictive sd alone is largest).
 #[test]
-fn explore_picks_high_uncertainty() {
-    // Largest predictive sd: the first proposal's sd must exceed that of 99% of random points.
+fn explore_reduces_integrated_variance_away_from_the_faces() {
     let x = maximin_lhs(15, 2, 4);
     let y: Vec<f64> = x.iter().map(|p| branin(p)).collect();
     let gp = fit(&Observations::new(x, y), &FitOptions::default()).expect("fit");
-    let p = propose(&gp, Strategy::Explore, 1, &[], 2);
-    let sd_p = gp.predict(&p)[0].sd;
-    let grid: Vec<Vec<f64>> = (0..50)
-        .flat_map(|i| (0..50).map(move |j| vec![i as f64 / 49.0, j as f64 / 49.0]))
+    let batch = propose(&gp, Strategy::Explore, 8, &Context::default(), 2);
+    let on_face = batch
+        .iter()
+        .filter(|p| p.x.iter().any(|&v| !(1e-9..=1.0 - 1e-9).contains(&v)))
+        .count();
+    assert!(on_face <= 1, "{on_face} of 8 on a face: {batch:?}");
+    let reference: Vec<Vec<f64>> = (0..40)
+        .flat_map(|i| (0..40).map(move |j| vec![(i as f64 + 0.5) / 40.0, (j as f64 + 0.5) / 40.0]))
         .collect();
-    let mut sds: Vec<f64> = gp.predict(&grid).iter().map(|q| q.sd).collect();
-    sds.sort_by(f64::total_cmp);
-    assert!(sd_p >= sds[(0.99 * sds.len() as f64) as usize], "sd {sd_p}");
+    let first = gp.integrated_variance_reduction(&reference, std::slice::from_ref(&batch[0].x))[0];
+    let mut random = gp.integrated_variance_reduction(&reference, &maximin_lhs(400, 2, 11));
+    random.sort_by(f64::total_cmp);
+    assert!(
+        first >= random[(0.99 * random.len() as f64) as usize],
+        "{first} vs {random:?}"
+    );
 }

@@ -234,6 +234,7 @@ fn sample_db(path: &Path) {
             values,
             origin: PointOrigin::Design,
             batch: 0,
+            proposal: None,
         })
         .collect::<Vec<_>>();
     store.insert_points(sweep.id, &pts, 2, 7).expect("insert");

@@ -33,10 +33,11 @@ fn local_run_completes_and_rerun_continues() {
     let _ = Duration::from_secs(0);
 }
 
-/// A database holds one sweep: another sweep file for it is refused with a
-/// message that says what to do; `--force` resumes the stored sweep.
+/// Editing the sweep file of a finished sweep: a comment changes nothing; a
+/// raised budget continues it and runs exactly the extra points; a changed
+/// range (which the stored results depend on) is refused naming the key.
 #[test]
-fn a_different_sweep_file_for_the_same_database_is_refused() {
+fn a_raised_budget_continues_and_a_moved_range_is_refused() {
     let tmp = tempfile::tempdir().expect("temp dir");
     let dir = tmp.path();
     let spec = branin_spec(dir, 4, 1, 0);
@@ -63,38 +64,49 @@ fn a_different_sweep_file_for_the_same_database_is_refused() {
         "{}",
         String::from_utf8_lossy(&same.stderr)
     );
-    let other = dir.join("other.toml");
-    std::fs::write(&other, text.replace("budget = 4", "budget = 9")).expect("write");
+    // A raised budget continues the stored sweep: exactly the extra points run.
+    let raised = dir.join("raised.toml");
+    std::fs::write(&raised, text.replace("budget = 4", "budget = 9")).expect("write");
     let out = tessera()
         .arg("run")
-        .arg(&other)
+        .arg(&raised)
         .arg("--db")
         .arg(&db)
         .output()
         .expect("run");
-    assert!(!out.status.success());
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let st = status(&db).expect("status");
+    assert_eq!(field(&st, "budget"), 9);
+    assert_eq!(field(&st, "points"), 9);
+    assert_eq!(field(&st, "done"), 9);
+    let rows = assert_each_once_all_ok(&db, 9);
+    assert_eq!(rows, 9);
+    // A changed range would not fit the stored results: refused, naming the key.
+    let moved = dir.join("moved.toml");
+    std::fs::write(
+        &moved,
+        text.replace("range = [-5.0, 10.0]", "range = [-4.0, 10.0]"),
+    )
+    .expect("write");
+    let out = tessera()
+        .arg("run")
+        .arg(&moved)
+        .arg("--db")
+        .arg(&db)
+        .output()
+        .expect("run");
+    assert_eq!(out.status.code(), Some(1));
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(
-        err.contains("different sweep file") && err.contains("--force"),
+        err.contains("changes `params.x1.range`") && err.contains("--force"),
         "{err}"
     );
-    let forced = tessera()
-        .arg("run")
-        .arg(&other)
-        .arg("--db")
-        .arg(&db)
-        .arg("--force")
-        .output()
-        .expect("run");
-    assert!(
-        forced.status.success(),
-        "{}",
-        String::from_utf8_lossy(&forced.stderr)
-    );
-    // The stored sweep (budget 4) is the one that continues.
     let st = status(&db).expect("status");
-    assert_eq!(field(&st, "budget"), 4);
-    assert_eq!(field(&st, "done"), 4);
+    assert_eq!(field(&st, "points"), 9, "nothing ran");
 }
 
 /// A sweep file with an error is refused before anything is written.

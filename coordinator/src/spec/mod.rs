@@ -42,6 +42,12 @@ pub struct Spec {
     pub strategy: Strategy,
     /// Re-runs of a failed evaluation before it counts as failed.
     pub retries: u32,
+    /// Each batch of proposals waits for every result before it (same
+    /// points on any number of workers); `None`: the command's default
+    /// (`tessera run`: yes, `tessera serve`: no).
+    pub reproducible: Option<bool>,
+    /// Stop before the budget when expected improvement stays small.
+    pub stop: Option<StopRule>,
     /// The model and how to run it.
     pub model: ModelSpec,
     /// The swept parameters, in the order they appear in the file.
@@ -52,6 +58,16 @@ pub struct Spec {
     pub targets: Vec<Target>,
     /// Units of metrics (from `[metrics.NAME]` and `[[target]]` `unit`); a metric not listed has no unit.
     pub metric_units: BTreeMap<String, String>,
+}
+
+/// When to stop before the budget is spent.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct StopRule {
+    /// The largest expected improvement (objective units) below which a
+    /// planning round counts as small.
+    pub improvement_below: f64,
+    /// Small rounds in a row that stop the sweep.
+    pub rounds: u32,
 }
 
 /// How points after the initial design are chosen.
@@ -70,6 +86,101 @@ impl Strategy {
             Strategy::Improve => "improve",
             Strategy::Explore => "explore",
         }
+    }
+}
+
+/// The batch size of reproducible sweeps that give no `batch` (our choice:
+/// batches of 4 cost little against one point at a time; see
+/// docs/benchmarks.md).
+pub const DEFAULT_REPRODUCIBLE_BATCH: u32 = 4;
+
+/// Why a sweep file cannot continue a stored sweep: the key that changed and
+/// why that matters.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct Incompatible {
+    /// The sweep-file key.
+    pub key: String,
+    /// Why the stored results would not fit the new value.
+    pub why: String,
+}
+
+impl Spec {
+    /// Whether this sweep file may continue `stored`: keys that only steer
+    /// what happens next (budget, strategy, batch, stop, retries, timeout,
+    /// objective, targets, names, units, descriptions) may change; keys that
+    /// the stored points and results depend on may not.
+    pub fn continues(&self, stored: &Spec) -> Result<(), Incompatible> {
+        let refuse = |key: &str, why: &str| {
+            Err(Incompatible {
+                key: key.to_string(),
+                why: why.to_string(),
+            })
+        };
+        if self.seed != stored.seed {
+            return refuse(
+                "seed",
+                "the design and every run's seed were derived from the stored seed",
+            );
+        }
+        if self.initial != stored.initial {
+            return refuse(
+                "initial",
+                "the initial design was already made with the stored size",
+            );
+        }
+        if self.replicates != stored.replicates {
+            return refuse(
+                "replicates",
+                "every stored point has the stored number of runs",
+            );
+        }
+        if self.model.name != stored.model.name {
+            return refuse(
+                "model.name",
+                "the stored results come from the stored model",
+            );
+        }
+        if self.model.command != stored.model.command {
+            return refuse(
+                "model.command",
+                "the stored results come from the stored command",
+            );
+        }
+        if self.model.fixed != stored.model.fixed {
+            return refuse(
+                "model.fixed",
+                "the stored results were run with the stored fixed inputs",
+            );
+        }
+        let names = |s: &Spec| s.params.iter().map(|p| p.name.clone()).collect::<Vec<_>>();
+        if names(self) != names(stored) {
+            return refuse(
+                "params",
+                "the stored points have values for the stored parameters",
+            );
+        }
+        for (a, b) in self.params.iter().zip(&stored.params) {
+            let key = format!("params.{}", a.name);
+            if a.lo != b.lo || a.hi != b.hi {
+                return refuse(
+                    &format!("{key}.range"),
+                    "the design and the surrogates are laid out on the stored range",
+                );
+            }
+            if a.scale != b.scale {
+                return refuse(
+                    &format!("{key}.scale"),
+                    "the design and the surrogates are laid out on the stored scale",
+                );
+            }
+            if a.integer != b.integer {
+                return refuse(
+                    &format!("{key}.integer"),
+                    "the stored points were made with the stored setting",
+                );
+            }
+        }
+        Ok(())
     }
 }
 
@@ -332,6 +443,15 @@ impl Spec {
                 }
                 Some(sum)
             }
+        }
+    }
+
+    /// The name of the objective's surrogate: the objective metric, or the
+    /// calibration discrepancy for a sweep with targets only.
+    pub fn objective_metric(&self) -> String {
+        match &self.objective {
+            Some(o) => o.metric.clone(),
+            None => self.objective_label(),
         }
     }
 

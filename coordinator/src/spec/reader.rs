@@ -18,8 +18,8 @@ use toml::Spanned;
 use super::error::LineIndex;
 use super::toml_access::{closest, join, num, table_start, type_name, Reader, Value};
 use super::{
-    Direction, ModelSpec, Objective, ParamSpec, Scale, Spec, SpecError, SpecErrors, Strategy,
-    Target,
+    Direction, ModelSpec, Objective, ParamSpec, Scale, Spec, SpecError, SpecErrors, StopRule,
+    Strategy, Target,
 };
 
 const TOP_KEYS: &[&str] = &[
@@ -37,7 +37,10 @@ const TOP_KEYS: &[&str] = &[
     "objective",
     "target",
     "metrics",
+    "reproducible",
+    "stop",
 ];
+const STOP_KEYS: &[&str] = &["expected_improvement_below", "for_rounds"];
 const MODEL_KEYS: &[&str] = &["name", "timeout", "command", "fixed"];
 const PARAM_KEYS: &[&str] = &["range", "scale", "integer", "unit", "description"];
 const OBJECTIVE_KEYS: &[&str] = &["minimize", "maximize"];
@@ -199,6 +202,14 @@ impl Reader<'_> {
             Some((_, v)) => self.strategy(v),
             None => Some(Strategy::Improve),
         };
+        let reproducible = match Self::lookup(root, "reproducible") {
+            Some((_, v)) => self.boolean(v, "reproducible").map(Some),
+            None => Some(None),
+        };
+        let stop = match Self::lookup(root, "stop") {
+            Some((k, v)) => self.stop(k.span().start, v).map(Some),
+            None => Some(None),
+        };
 
         let fixed_names: BTreeSet<String> = Self::lookup(root, "model")
             .and_then(|(_, m)| match m.get_ref() {
@@ -286,6 +297,8 @@ impl Reader<'_> {
             batch: batch?,
             strategy: strategy?,
             retries: retries?,
+            reproducible: reproducible?,
+            stop: stop?,
             model: model?,
             params,
             objective: objective?,
@@ -306,6 +319,46 @@ impl Reader<'_> {
             Some((_, v)) => self.whole(v, key, min, MAX_REPEATS, what).map(|n| n as u32),
             None => Some(default),
         }
+    }
+
+    fn stop(&mut self, key_at: usize, v: &Value<'_>) -> Option<StopRule> {
+        let t = self.table(v, "stop", "[stop]")?;
+        self.check_keys(t, "stop", STOP_KEYS);
+        let below = match Self::lookup(t, "expected_improvement_below") {
+            Some((_, bv)) => match self.number(bv, "stop.expected_improvement_below") {
+                Some(x) if x > 0.0 => Some(x),
+                Some(x) => {
+                    self.error(
+                        bv.span().start,
+                        "stop.expected_improvement_below",
+                        format!(
+                            "must be above zero (in the objective's unit); found {}",
+                            num(x)
+                        ),
+                    );
+                    None
+                }
+                None => None,
+            },
+            None => {
+                self.error(
+                    table_start(v, key_at),
+                    "stop.expected_improvement_below",
+                    "missing: stop when the largest expected improvement stays below this value, in the objective's unit, e.g. expected_improvement_below = 0.001",
+                );
+                None
+            }
+        };
+        let rounds = match Self::lookup(t, "for_rounds") {
+            Some((_, rv)) => self
+                .whole(rv, "stop.for_rounds", 1, 1000, "planning rounds in a row")
+                .map(|r| r as u32),
+            None => Some(3),
+        };
+        Some(StopRule {
+            improvement_below: below?,
+            rounds: rounds?,
+        })
     }
 
     fn strategy(&mut self, v: &Value<'_>) -> Option<Strategy> {

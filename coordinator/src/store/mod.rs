@@ -236,6 +236,19 @@ impl PointOrigin {
     }
 }
 
+/// What the planner believed about a point it proposed.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ProposalInfo {
+    /// The acquisition value that chose it.
+    pub acquisition: f64,
+    /// The objective's predicted mean there (in the sweep file's sign).
+    pub predicted_mean: f64,
+    /// Its predictive sd.
+    pub predicted_sd: f64,
+    /// Which surrogate made the proposal, in words (metric, results, round).
+    pub surrogate: String,
+}
+
 /// A point to add.
 #[derive(Clone, Debug, PartialEq)]
 pub struct NewPoint {
@@ -245,6 +258,8 @@ pub struct NewPoint {
     pub origin: PointOrigin,
     /// Planning round that proposed it (0 for the initial design).
     pub batch: u32,
+    /// What the planner believed there (none for the initial design).
+    pub proposal: Option<ProposalInfo>,
 }
 
 /// A stored point.
@@ -260,6 +275,9 @@ pub struct PointRecord {
     pub origin: PointOrigin,
     /// Planning round that proposed it (0 for the initial design).
     pub batch: u32,
+    /// What the planner believed there (none for the initial design, and
+    /// in databases written before proposals were stored).
+    pub proposal: Option<ProposalInfo>,
 }
 
 /// State of one (point, replicate) evaluation.
@@ -894,8 +912,9 @@ impl Store {
         let mut out = Vec::with_capacity(points.len());
         {
             let mut put_point = tx.prepare(
-                "INSERT INTO points (sweep_id, idx, values_json, origin, batch, created_unix_ms)
-                 VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+                "INSERT INTO points (sweep_id, idx, values_json, origin, batch, created_unix_ms,
+                                     acquisition, predicted_mean, predicted_sd, surrogate)
+                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10)",
             )?;
             let mut put_eval = tx.prepare(
                 "INSERT INTO evaluations (point_id, replicate, seed, status, attempts)
@@ -910,13 +929,19 @@ impl Store {
                 let idx = next + k as i64;
                 let values_json = serde_json::to_string(&p.values)
                     .map_err(|e| StoreError::Damaged(format!("point values: {e}")))?;
+                let info = p.proposal.as_ref();
+                let finite = |x: f64| x.is_finite().then_some(x);
                 put_point.execute(params![
                     sweep_id,
                     idx,
                     values_json,
                     p.origin.as_str(),
                     p.batch,
-                    created
+                    created,
+                    info.and_then(|i| finite(i.acquisition)),
+                    info.and_then(|i| finite(i.predicted_mean)),
+                    info.and_then(|i| finite(i.predicted_sd)),
+                    info.map(|i| i.surrogate.clone()),
                 ])?;
                 let point_id = tx.last_insert_rowid();
                 for r in 0..replicates {
@@ -929,6 +954,7 @@ impl Store {
                     values: p.values.clone(),
                     origin: p.origin,
                     batch: p.batch,
+                    proposal: p.proposal.clone(),
                 });
             }
         }
@@ -942,34 +968,75 @@ impl Store {
     }
 
     fn points_unnamed(&self, sweep_id: i64) -> Result<Vec<PointRecord>, StoreError> {
-        let mut stmt = self.conn.prepare(
-            "SELECT id, idx, values_json, origin, batch FROM points
-             WHERE sweep_id = ?1 ORDER BY idx",
-        )?;
+        // Proposal columns exist from schema version 2 on (read-only
+        // queries may open an older file).
+        let with_proposals = self.has_table("holder")?;
+        let sql = if with_proposals {
+            "SELECT id, idx, values_json, origin, batch,
+                    acquisition, predicted_mean, predicted_sd, surrogate
+             FROM points WHERE sweep_id = ?1 ORDER BY idx"
+        } else {
+            "SELECT id, idx, values_json, origin, batch, NULL, NULL, NULL, NULL
+             FROM points WHERE sweep_id = ?1 ORDER BY idx"
+        };
+        let mut stmt = self.conn.prepare(sql)?;
         let rows = stmt.query_map(params![sweep_id], |r| {
             Ok((
-                r.get::<_, i64>(0)?,
-                r.get::<_, i64>(1)?,
-                r.get::<_, String>(2)?,
-                r.get::<_, String>(3)?,
-                r.get::<_, u32>(4)?,
+                (
+                    r.get::<_, i64>(0)?,
+                    r.get::<_, i64>(1)?,
+                    r.get::<_, String>(2)?,
+                    r.get::<_, String>(3)?,
+                    r.get::<_, u32>(4)?,
+                ),
+                (
+                    r.get::<_, Option<f64>>(5)?,
+                    r.get::<_, Option<f64>>(6)?,
+                    r.get::<_, Option<f64>>(7)?,
+                    r.get::<_, Option<String>>(8)?,
+                ),
             ))
         })?;
         let mut out = Vec::new();
         for row in rows {
-            let (id, idx, values_json, origin, batch) = row?;
+            let ((id, idx, values_json, origin, batch), (acq, mean, sd, surrogate)) = row?;
             let values: Vec<f64> = serde_json::from_str(&values_json).map_err(|e| {
                 StoreError::Damaged(format!("point {idx}: values {values_json:?}: {e}"))
             })?;
+            let proposal = surrogate.map(|surrogate| ProposalInfo {
+                acquisition: acq.unwrap_or(f64::NAN),
+                predicted_mean: mean.unwrap_or(f64::NAN),
+                predicted_sd: sd.unwrap_or(f64::NAN),
+                surrogate,
+            });
             out.push(PointRecord {
                 id,
                 idx: idx as u64,
                 values,
                 origin: PointOrigin::parse(&origin)?,
                 batch,
+                proposal,
             });
         }
         Ok(out)
+    }
+
+    /// Replaces the stored sweep file (a compatible edit: a raised budget,
+    /// another strategy); see `Spec::continues`.
+    pub fn update_spec_text(
+        &mut self,
+        sweep_id: i64,
+        spec_text: &str,
+        spec_file: &str,
+    ) -> Result<(), StoreError> {
+        let tx = self.conn.transaction()?;
+        check_holder(self.holder.as_deref(), &self.path, &tx)?;
+        tx.execute(
+            "UPDATE sweeps SET spec_text = ?2, spec_file = ?3 WHERE id = ?1",
+            params![sweep_id, spec_text, spec_file],
+        )?;
+        tx.commit()?;
+        Ok(())
     }
 
     /// All evaluations of the sweep, by point index and replicate.

@@ -40,6 +40,11 @@ pub struct FitOptions {
     /// Up to twice this size, the subset optimum is then polished by a few
     /// L-BFGS iterations on all observations.
     pub max_hyper_points: usize,
+    /// Start from these hyperparameters (standardised units, as [`Gp::hyper`]
+    /// returns them) instead of the default first start: a warm start from
+    /// the previous fit when a few observations were added.
+    #[serde(default)]
+    pub start: Option<Hyper>,
 }
 
 impl Default for FitOptions {
@@ -50,6 +55,7 @@ impl Default for FitOptions {
             seed: 0,
             fit_nugget: true,
             max_hyper_points: 1000,
+            start: None,
         }
     }
 }
@@ -340,14 +346,34 @@ pub(super) fn fit(obs: &Observations, opts: &FitOptions) -> Result<Gp, GpError> 
     // third of the mean distance of random points), nugget 1e-3; then
     // log-uniform random starts in a central part of the box.
     let mut starts = Vec::with_capacity(opts.restarts + 1);
-    let mut first = vec![0.0];
-    first.extend(std::iter::repeat_n(
-        (0.3 * (d.max(1) as f64).sqrt()).ln(),
-        d,
-    ));
-    if opts.fit_nugget {
-        first.push(1e-3f64.ln());
-    }
+    let warm = opts
+        .start
+        .as_ref()
+        .filter(|h| h.lengthscales.len() == d && h.signal_var > 0.0);
+    let first = match warm {
+        Some(h) => {
+            let mut t = vec![h.signal_var.ln()];
+            t.extend(h.lengthscales.iter().map(|l| l.max(1e-300).ln()));
+            if opts.fit_nugget {
+                t.push(h.nugget.max(bn.0).ln());
+            }
+            t.iter()
+                .zip(lo.iter().zip(&hi))
+                .map(|(v, (l, h))| v.clamp(*l, *h))
+                .collect()
+        }
+        None => {
+            let mut first = vec![0.0];
+            first.extend(std::iter::repeat_n(
+                (0.3 * (d.max(1) as f64).sqrt()).ln(),
+                d,
+            ));
+            if opts.fit_nugget {
+                first.push(1e-3f64.ln());
+            }
+            first
+        }
+    };
     starts.push(first);
     for _ in 0..opts.restarts {
         let mut s = vec![rng.random_range(0.1f64.ln()..10f64.ln())];

@@ -12,10 +12,12 @@
 
 mod batch;
 mod fit;
+mod gradient;
 mod kernel;
 mod linalg;
 
 pub use fit::{bounds, FitOptions};
+pub use gradient::PredictionGradient;
 pub use kernel::KernelKind;
 
 use rayon::prelude::*;
@@ -399,6 +401,18 @@ impl Gp {
             .iter()
             .map(|v| self.y_mean + self.y_scale * v)
             .collect()
+    }
+
+    /// The same GP for the negated outputs (-y): what a minimiser needs to
+    /// maximise a metric. Hyperparameters and the factor are unchanged.
+    pub fn negated(&self) -> Gp {
+        let mut g = self.clone();
+        g.y_mean = -g.y_mean;
+        g.hyper.mean = -g.hyper.mean;
+        for v in g.ys.iter_mut().chain(g.alpha.iter_mut()) {
+            *v = -*v;
+        }
+        g
     }
 
     /// The noise variance of each observation in natural units: its known
