@@ -159,6 +159,13 @@ const GRADIENT_STEPS: usize = 60;
 /// Rounds of the random local search (Explore) and trial points per round.
 const SEARCH_ROUNDS: usize = 15;
 const SEARCH_BATCH: usize = 12;
+/// When the point of largest expected improvement has its predicted mean
+/// more than this many sds above the best, its improvement comes from
+/// uncertainty alone: the basins seen so far are exhausted, and the point is
+/// chosen by the integrated-variance reduction instead, which explores the
+/// interior of the box rather than its corners, where the sd is largest
+/// (our choice: 3).
+const UNCERTAINTY_ONLY: f64 = 3.0;
 /// Reference points for the integrated variance (Monte Carlo over the box).
 const N_REFERENCE: usize = 256;
 
@@ -332,11 +339,7 @@ pub fn propose(
     let sep = 0.05 * (d as f64).sqrt() * ((observed.len() + q) as f64).powf(-1.0 / d as f64);
     let sep2 = sep * sep;
     let mut blocked: Vec<Vec<f64>> = ctx.avoid.iter().chain(observed.iter()).cloned().collect();
-    let reference = if strategy == Strategy::Explore {
-        lhs(N_REFERENCE, d, &mut rng)
-    } else {
-        Vec::new()
-    };
+    let reference = lhs(N_REFERENCE, d, &mut rng);
     let snap = |x: Vec<f64>| match ctx.snap {
         Some(s) => s(&x),
         None => x,
@@ -384,8 +387,8 @@ pub fn propose(
             }
         }
         let p_fail = p_fail_many(ctx.failure, &cands);
-        let score_many = |m: &Gp, pts: &[Vec<f64>], pf: &[f64]| -> Vec<f64> {
-            match strategy {
+        let score_many = |effective: Strategy, m: &Gp, pts: &[Vec<f64>], pf: &[f64]| -> Vec<f64> {
+            match effective {
                 Strategy::Improve => m
                     .predict(pts)
                     .iter()
@@ -400,79 +403,106 @@ pub fn propose(
                     .collect(),
             }
         };
-        let mut scores = score_many(&model, &cands, &p_fail);
-        // Expected improvement can underflow to 0 everywhere far from the
-        // best: then the point of largest sd is the most useful.
-        let flat = scores.iter().all(|&s| s <= 0.0);
-        if flat {
-            scores = model
-                .predict(&cands)
-                .iter()
-                .zip(&p_fail)
-                .map(|(p, f)| p.sd * (1.0 - f))
-                .collect();
-        }
-        let mut idx: Vec<usize> = (0..cands.len()).collect();
-        idx.sort_by(|&a, &b| scores[b].total_cmp(&scores[a]));
-        // Distinct starts, away from what is blocked.
-        let mut starts: Vec<usize> = Vec::new();
-        for &i in &idx {
-            if starts.len() == n_starts {
-                break;
-            }
-            if free(&cands[i], &blocked)
-                && starts
-                    .iter()
-                    .all(|&s| dist2(&cands[s], &cands[i]) >= 4.0 * sep2)
-            {
-                starts.push(i);
-            }
-        }
-        let seeds: Vec<u64> = (0..starts.len()).map(|_| rng.random()).collect();
-        let model_ref = &model;
-        let blocked_ref = &blocked;
-        let refined: Vec<(Vec<f64>, f64)> = starts
-            .par_iter()
-            .zip(seeds)
-            .map(|(&s, sd)| {
-                let (x, v) = match (strategy, flat) {
-                    (Strategy::Improve, false) => ascend(&cands[s], &|x| {
-                        improve_value(model_ref, ctx.failure, f_best, x)
-                    }),
-                    _ => {
-                        let mut r = ChaCha8Rng::seed_from_u64(sd);
-                        search(&cands[s], scores[s], &mut r, &|pts| {
-                            let pf = p_fail_many(ctx.failure, pts);
-                            if flat {
-                                model_ref
-                                    .predict(pts)
-                                    .iter()
-                                    .zip(&pf)
-                                    .map(|(p, f)| p.sd * (1.0 - f))
-                                    .collect()
-                            } else {
-                                score_many(model_ref, pts, &pf)
-                            }
-                        })
-                    }
-                };
-                let x = snap(x);
-                if free(&x, blocked_ref) {
-                    (x, v)
-                } else {
-                    (cands[s].clone(), scores[s])
+        // One search under a criterion: the best candidates, then local
+        // optimisation from the distinct best few.
+        let pick = |effective: Strategy, rng: &mut ChaCha8Rng| -> Vec<f64> {
+            let scores = score_many(effective, &model, &cands, &p_fail);
+            let mut idx: Vec<usize> = (0..cands.len()).collect();
+            idx.sort_by(|&a, &b| scores[b].total_cmp(&scores[a]));
+            let mut starts: Vec<usize> = Vec::new();
+            for &i in &idx {
+                if starts.len() == n_starts {
+                    break;
                 }
-            })
-            .collect();
-        let chosen = refined
-            .into_iter()
-            .max_by(|a, b| a.1.total_cmp(&b.1))
-            .map(|(x, _)| x)
-            .unwrap_or_else(|| snap(cands[idx[0]].clone()));
+                if free(&cands[i], &blocked)
+                    && starts
+                        .iter()
+                        .all(|&s| dist2(&cands[s], &cands[i]) >= 4.0 * sep2)
+                {
+                    starts.push(i);
+                }
+            }
+            let seeds: Vec<u64> = (0..starts.len()).map(|_| rng.random()).collect();
+            let model_ref = &model;
+            let blocked_ref = &blocked;
+            let refined: Vec<(Vec<f64>, f64)> = starts
+                .par_iter()
+                .zip(seeds)
+                .map(|(&s, sd)| {
+                    let (x, v) = match effective {
+                        Strategy::Improve => ascend(&cands[s], &|x| {
+                            improve_value(model_ref, ctx.failure, f_best, x)
+                        }),
+                        Strategy::Explore => {
+                            let mut r = ChaCha8Rng::seed_from_u64(sd);
+                            search(&cands[s], scores[s], &mut r, &|pts| {
+                                let pf = p_fail_many(ctx.failure, pts);
+                                score_many(effective, model_ref, pts, &pf)
+                            })
+                        }
+                    };
+                    let x = snap(x);
+                    if free(&x, blocked_ref) {
+                        (x, v)
+                    } else {
+                        (cands[s].clone(), scores[s])
+                    }
+                })
+                .collect();
+            refined
+                .into_iter()
+                .max_by(|a, b| a.1.total_cmp(&b.1))
+                .map(|(x, _)| x)
+                .unwrap_or_else(|| snap(cands[idx[0]].clone()))
+        };
+        let mut effective = strategy;
+        let mut chosen = pick(strategy, &mut rng);
+        if strategy == Strategy::Improve {
+            // Expected improvement that comes from uncertainty alone (the
+            // predicted mean far above the best) chases the corners of the
+            // box, where the sd is largest. Improve near the best instead if
+            // any candidate there still promises improvement; otherwise
+            // explore the interior.
+            let from_uncertainty = |x: &[f64]| {
+                let p = model.predict(&[x.to_vec()])[0];
+                p.sd <= 0.0 || (f_best - p.mean) / p.sd < -UNCERTAINTY_ONLY
+            };
+            if from_uncertainty(&chosen) {
+                let preds = model.predict(&cands);
+                let near = cands
+                    .iter()
+                    .zip(&preds)
+                    .zip(&p_fail)
+                    .filter(|((c, p), _)| {
+                        p.sd > 0.0
+                            && (f_best - p.mean) / p.sd >= -UNCERTAINTY_ONLY
+                            && free(c, &blocked)
+                    })
+                    .map(|((c, p), f)| (c, expected_improvement(f_best, p.mean, p.sd) * (1.0 - f)))
+                    .filter(|(_, v)| *v > 0.0)
+                    .max_by(|a, b| a.1.total_cmp(&b.1))
+                    .map(|(c, _)| c.clone());
+                match near {
+                    Some(c) => {
+                        let (x, _) = ascend(&c, &|x| improve_value(&model, ctx.failure, f_best, x));
+                        let x = snap(x);
+                        chosen = if free(&x, &blocked) && !from_uncertainty(&x) {
+                            x
+                        } else {
+                            snap(c)
+                        };
+                    }
+                    None => {
+                        effective = Strategy::Explore;
+                        chosen = pick(effective, &mut rng);
+                    }
+                }
+            }
+        }
         // What the surrogate believes at the chosen point (after snapping).
         let pf = p_fail_many(ctx.failure, std::slice::from_ref(&chosen))[0];
         let pred = model.predict(std::slice::from_ref(&chosen))[0];
-        let acquisition = match strategy {
+        let acquisition = match effective {
             Strategy::Improve => expected_improvement(f_best, pred.mean, pred.sd) * (1.0 - pf),
             Strategy::Explore => {
                 model.integrated_variance_reduction(&reference, std::slice::from_ref(&chosen))[0]

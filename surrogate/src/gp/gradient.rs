@@ -115,6 +115,18 @@ impl Gp {
         reference: &[Vec<f64>],
         xs: &[Vec<f64>],
     ) -> Vec<f64> {
+        self.weighted_variance_reduction(reference, None, xs)
+    }
+
+    /// As [`Gp::integrated_variance_reduction`], with reference point `j`
+    /// weighing `weights[j]` instead of 1/m (the weights need not sum to 1).
+    #[track_caller]
+    pub fn weighted_variance_reduction(
+        &self,
+        reference: &[Vec<f64>],
+        weights: Option<&[f64]>,
+        xs: &[Vec<f64>],
+    ) -> Vec<f64> {
         let (n, d) = (self.n, self.d);
         assert!(
             reference.iter().chain(xs).all(|p| p.len() == d),
@@ -150,12 +162,13 @@ impl Gp {
                 solve_chol(&self.chol, n, &mut wx);
                 let var_x = (sf2 - kx.iter().zip(&wx).map(|(a, b)| a * b).sum::<f64>()).max(0.0);
                 let mut total = 0.0;
-                for (z, kzi) in reference.iter().zip(&kz) {
+                for (j, (z, kzi)) in reference.iter().zip(&kz).enumerate() {
                     // cov(z, x) = k(z, x) - k(z)^T K^-1 k(x)
                     let c = kern(z, x) - kzi.iter().zip(&kx).map(|(a, b)| a * b).sum::<f64>();
-                    total += c * c;
+                    let w = weights.map_or(1.0 / m as f64, |w| w[j]);
+                    total += w * c * c;
                 }
-                s2 * total / (m as f64 * (var_x + noise))
+                s2 * total / (var_x + noise)
             })
             .collect()
     }
