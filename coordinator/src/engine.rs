@@ -224,7 +224,19 @@ impl Engine {
         let seed = spec.seed;
         let spec = Arc::new(spec);
         let mut sched = Scheduler::new(spec.clone(), opts.times, nonce, &points, &evaluations);
-        sched.set_reproducible(spec.reproducible.unwrap_or(opts.reproducible_default));
+        let reproducible = spec.reproducible.unwrap_or(opts.reproducible_default);
+        sched.set_reproducible(reproducible);
+        store.set_note(
+            "reproducible",
+            Some(if reproducible { "true" } else { "false" }),
+        )?;
+        // A sweep stopped early stays stopped unless its file was edited
+        // (a raised budget or another stop rule continues it).
+        match store.note("stop_reason")? {
+            Some(r) if spec_text == opts.spec_text || opts.force => sched.stop(r),
+            Some(_) => store.set_note("stop_reason", None)?,
+            None => {}
+        }
         let (store, _join) = StoreHandle::spawn(store, sweep.id, replicates, seed)?;
         Ok(Arc::new(Engine {
             sched: Mutex::new(sched),
@@ -465,6 +477,11 @@ impl Engine {
                         rule.rounds
                     );
                     tracing::info!("{reason}");
+                    let note = reason.clone();
+                    let _ = self
+                        .store
+                        .call(move |st| st.set_note("stop_reason", Some(&note)))
+                        .await;
                     lock(&self.sched).stop(reason);
                 }
             }

@@ -12,8 +12,9 @@
 //! Proposals maximise expected improvement (`strategy = "improve"`) or the
 //! reduction of the integrated variance (`strategy = "explore"`), weighted
 //! by the probability that a run succeeds once runs have failed (a
-//! surrogate of the failure rate, see [`fitter::FAILURE_RATE`]); see
-//! `tessera_surrogate::acquisition`. With too little data, or if the fit
+//! surrogate of the failure rate, see [`fitter::FAILURE_RATE`]), with
+//! points that only failed counted as the worst value seen (for the search
+//! only); see `tessera_surrogate::acquisition`. With too little data, or if the fit
 //! fails, the planner proposes seeded uniform points and says why.
 
 use crate::fitter::{self, MetricFit};
@@ -111,11 +112,30 @@ impl Planner {
         }
         self.last = Some(fit.gp.hyper().clone());
         let maximise = matches!(&spec.objective, Some(o) if o.direction == Direction::Maximize);
-        let loss_gp = if maximise {
+        let mut loss_gp = if maximise {
             fit.gp.negated()
         } else {
             fit.gp.clone()
         };
+        // Points whose runs all failed count, for the search only, as the
+        // worst value seen: penalised imputation (Forrester, Sobester & Keane
+        // 2006, "Optimization with missing data", Proc. R. Soc. A 462:935-945),
+        // so the search does not return to where runs fail. The served
+        // surrogate is not changed.
+        let worst = loss_gp
+            .observed_y()
+            .into_iter()
+            .fold(f64::NEG_INFINITY, f64::max);
+        if worst.is_finite() {
+            for p in results
+                .iter()
+                .filter(|p| p.replicates.is_empty() && p.failed > 0)
+            {
+                if let Ok(g) = loss_gp.update_believer(&spec.to_unit(&p.values), worst) {
+                    loss_gp = g;
+                }
+            }
+        }
         let failure = jobs
             .iter()
             .find(|j| j.metric == fitter::FAILURE_RATE)

@@ -206,6 +206,8 @@ pub struct Scheduler {
     stop_reason: Option<String>,
     /// The batch number of the next planning round (the design is batch 0).
     next_batch: u32,
+    /// Where runs fail, worked out again only when the failure count changes.
+    failure_region: std::sync::Mutex<(u64, Option<String>)>,
 }
 
 impl Scheduler {
@@ -238,6 +240,7 @@ impl Scheduler {
             reproducible: false,
             stop_reason: None,
             next_batch: 1,
+            failure_region: std::sync::Mutex::new((0, None)),
         };
         s.add_points(points);
         let mut evals: Vec<&EvaluationRecord> = evaluations.iter().collect();
@@ -729,6 +732,25 @@ impl Scheduler {
         best_point(&self.spec, self.points.values())
     }
 
+    /// Where runs fail (see [`crate::status::failure_region`]), cached by
+    /// the number of failed evaluations.
+    fn failure_region(&self) -> Option<String> {
+        if self.failed == 0 {
+            return None;
+        }
+        let mut cache = self
+            .failure_region
+            .lock()
+            .unwrap_or_else(|p| p.into_inner());
+        if cache.0 != self.failed {
+            *cache = (
+                self.failed,
+                crate::status::failure_region(&self.spec, &self.point_results()),
+            );
+        }
+        cache.1.clone()
+    }
+
     /// A snapshot for `status`.
     pub fn status(&self, now: Instant) -> SweepStatus {
         let running = self.pending.values().filter(|p| p.lease.is_some()).count() as u64;
@@ -776,6 +798,9 @@ impl Scheduler {
             best: self.best(),
             finished: self.finished(),
             objective_label: self.spec.objective_label(),
+            failure_region: self.failure_region(),
+            stop_reason: self.stop_reason.clone(),
+            reproducible: self.reproducible,
         }
     }
 }
@@ -792,13 +817,38 @@ pub fn status_from_records(
     spec: std::sync::Arc<Spec>,
     points: &[PointRecord],
     evaluations: &[EvaluationRecord],
+    notes: &FileNotes,
 ) -> SweepStatus {
-    Scheduler::new(
+    let mut s = Scheduler::new(
         spec,
         LeaseTimes::default(),
         String::new(),
         points,
         evaluations,
-    )
-    .status(Instant::now())
+    );
+    s.set_reproducible(notes.reproducible);
+    if let Some(r) = &notes.stop_reason {
+        s.stop(r.clone());
+    }
+    s.status(Instant::now())
+}
+
+/// What the coordinator recorded about a sweep beyond its points and
+/// evaluations (see `Engine`): read by the file-based status.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct FileNotes {
+    /// Batches wait for every earlier result.
+    pub reproducible: bool,
+    /// Why proposing stopped before the budget.
+    pub stop_reason: Option<String>,
+}
+
+impl FileNotes {
+    /// Reads the notes from a store.
+    pub fn read(store: &crate::store::Store) -> Result<FileNotes, crate::store::StoreError> {
+        Ok(FileNotes {
+            reproducible: store.note("reproducible")?.as_deref() == Some("true"),
+            stop_reason: store.note("stop_reason")?,
+        })
+    }
 }

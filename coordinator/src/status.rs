@@ -76,6 +76,12 @@ pub struct SweepStatus {
     pub finished: bool,
     /// What the objective is.
     pub objective_label: String,
+    /// Where runs fail, in words (none when no run failed).
+    pub failure_region: Option<String>,
+    /// Why the sweep stopped before its budget, if it did.
+    pub stop_reason: Option<String>,
+    /// Each batch of proposals waits for every result before it.
+    pub reproducible: bool,
 }
 
 /// Per-point results, for the best point and the planner.
@@ -134,4 +140,139 @@ pub fn best_point<'a>(
         objective: spec.display_objective(loss),
         replicates: p.replicates.len() as u32,
     })
+}
+
+/// A region of the box, as one or two one-sided conditions on parameters.
+#[derive(Clone, Debug)]
+struct Rule {
+    /// (parameter index, at least?, threshold in natural units).
+    conds: Vec<(usize, bool, f64)>,
+}
+
+impl Rule {
+    fn holds(&self, values: &[f64]) -> bool {
+        self.conds.iter().all(|&(j, above, t)| {
+            if above {
+                values[j] >= t
+            } else {
+                values[j] <= t
+            }
+        })
+    }
+}
+
+/// Where runs fail, in words: the simplest region of the box (one or two
+/// one-sided conditions on parameters) that holds at least half of the
+/// failed runs and where runs fail most often compared with elsewhere;
+/// or "spread over the box" when no such region stands out. `None` when
+/// no run failed.
+pub fn failure_region(spec: &Spec, results: &[PointResults]) -> Option<String> {
+    let runs: Vec<(&[f64], u32, u32)> = results
+        .iter()
+        .filter(|p| p.values.len() == spec.dimension())
+        .map(|p| {
+            (
+                p.values.as_slice(),
+                p.failed,
+                p.replicates.len() as u32 + p.failed,
+            )
+        })
+        .filter(|(_, _, n)| *n > 0)
+        .collect();
+    let failed: u32 = runs.iter().map(|r| r.1).sum();
+    let total: u32 = runs.iter().map(|r| r.2).sum();
+    if failed == 0 {
+        return None;
+    }
+    // Candidate thresholds: up to 8 quantiles of the parameter values of
+    // points with failures.
+    let d = spec.dimension();
+    let mut singles: Vec<Rule> = Vec::new();
+    for j in 0..d {
+        let mut ts: Vec<f64> = runs.iter().filter(|r| r.1 > 0).map(|r| r.0[j]).collect();
+        ts.sort_by(f64::total_cmp);
+        ts.dedup();
+        if ts.len() > 8 {
+            ts = (0..8).map(|k| ts[k * (ts.len() - 1) / 7]).collect();
+        }
+        for &t in &ts {
+            singles.push(Rule {
+                conds: vec![(j, true, t)],
+            });
+            singles.push(Rule {
+                conds: vec![(j, false, t)],
+            });
+        }
+    }
+    let score = |r: &Rule| -> Option<(f64, u32, u32)> {
+        let (mut f_in, mut n_in) = (0u32, 0u32);
+        for (v, f, n) in &runs {
+            if r.holds(v) {
+                f_in += f;
+                n_in += n;
+            }
+        }
+        let (f_out, n_out) = (failed - f_in, total - n_in);
+        if 2 * f_in < failed || n_in == 0 {
+            return None;
+        }
+        let rate_in = f64::from(f_in) / f64::from(n_in);
+        let rate_out = if n_out > 0 {
+            f64::from(f_out) / f64::from(n_out)
+        } else {
+            0.0
+        };
+        Some((rate_in - rate_out, f_in, n_in))
+    };
+    let best_of = |rules: &[Rule]| {
+        rules
+            .iter()
+            .filter_map(|r| score(r).map(|s| (r.clone(), s)))
+            .max_by(|a, b| a.1 .0.total_cmp(&b.1 .0))
+    };
+    let mut best = best_of(&singles);
+    if d >= 2 && singles.len() <= 100 {
+        let mut pairs = Vec::new();
+        for (i, a) in singles.iter().enumerate() {
+            for b in &singles[i + 1..] {
+                if a.conds[0].0 != b.conds[0].0 {
+                    pairs.push(Rule {
+                        conds: vec![a.conds[0], b.conds[0]],
+                    });
+                }
+            }
+        }
+        if let Some(p) = best_of(&pairs) {
+            // Two conditions only when they say clearly more than one.
+            if best.as_ref().is_none_or(|b| p.1 .0 > b.1 .0 + 0.15) {
+                best = Some(p);
+            }
+        }
+    }
+    let spread = format!("failures are spread over the box ({failed} of {total} runs failed)");
+    let Some((rule, (gap, f_in, n_in))) = best else {
+        return Some(spread);
+    };
+    if gap < 0.3 {
+        return Some(spread);
+    }
+    let words: Vec<String> = rule
+        .conds
+        .iter()
+        .map(|&(j, above, t)| {
+            let p = &spec.params[j];
+            format!(
+                "{} {} {}",
+                p.name,
+                if above { ">=" } else { "<=" },
+                tessera_models::text::with_unit(tessera_models::text::short(t), &p.unit)
+            )
+        })
+        .collect();
+    Some(format!(
+        "runs fail mostly where {}: {f_in} of {n_in} runs there failed, {} of {} elsewhere",
+        words.join(" and "),
+        failed - f_in,
+        total - n_in
+    ))
 }

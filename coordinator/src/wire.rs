@@ -106,6 +106,9 @@ pub fn status_reply(s: SweepStatus) -> pb::StatusReply {
         finished: s.finished,
         evaluations_total: s.evaluations_total,
         objective_label: s.objective_label,
+        failure_region: s.failure_region.unwrap_or_default(),
+        stop_reason: s.stop_reason.unwrap_or_default(),
+        reproducible: s.reproducible,
     }
 }
 
@@ -149,6 +152,9 @@ pub fn status_from_reply(r: pb::StatusReply) -> SweepStatus {
         }),
         finished: r.finished,
         objective_label: r.objective_label,
+        failure_region: Some(r.failure_region).filter(|s| !s.is_empty()),
+        stop_reason: Some(r.stop_reason).filter(|s| !s.is_empty()),
+        reproducible: r.reproducible,
     }
 }
 

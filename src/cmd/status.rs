@@ -6,7 +6,7 @@ use anyhow::Context;
 use std::path::PathBuf;
 use std::process::ExitCode;
 use tessera_coordinator::client::QueryClient;
-use tessera_coordinator::scheduler::status_from_records;
+use tessera_coordinator::scheduler::{status_from_records, FileNotes};
 use tessera_coordinator::spec::{self, Spec};
 use tessera_coordinator::status::SweepStatus;
 use tessera_coordinator::store::Store;
@@ -46,8 +46,9 @@ pub fn from_db(db: &std::path::Path) -> anyhow::Result<(SweepStatus, Spec)> {
     })?;
     let points = store.points(sweep.id)?;
     let evals = store.evaluations(sweep.id)?;
+    let notes = FileNotes::read(&store)?;
     let spec = std::sync::Arc::new(spec);
-    let st = status_from_records(spec.clone(), &points, &evals);
+    let st = status_from_records(spec.clone(), &points, &evals, &notes);
     Ok((st, (*spec).clone()))
 }
 
@@ -66,8 +67,15 @@ pub fn print_human(st: &SweepStatus, spec: Option<&Spec>) {
     println!("sweep      {}", st.sweep);
     println!("objective  {}", st.objective_label);
     println!(
-        "points     {} of {} ({} replicates each)",
-        st.points, st.budget, st.replicates
+        "points     {} of {} ({} replicates each; {})",
+        st.points,
+        st.budget,
+        st.replicates,
+        if st.reproducible {
+            "each batch waits for the one before: reproducible"
+        } else {
+            "proposed as results arrive"
+        }
     );
     println!(
         "runs       {} done, {} failed, {} running, {} queued, of {}{}",
@@ -129,11 +137,17 @@ pub fn print_human(st: &SweepStatus, spec: Option<&Spec>) {
             );
         }
     }
+    if let Some(why) = &st.stop_reason {
+        println!("stopped    {why}");
+    }
     if !st.failures.is_empty() {
         println!();
         println!("failures by reason:");
         for (reason, n) in &st.failures {
             println!("  {n:>6}  {reason}");
+        }
+        if let Some(region) = &st.failure_region {
+            println!("where:     {region}");
         }
     }
 }

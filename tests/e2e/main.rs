@@ -4,6 +4,7 @@
 //! One binary, a module per area; `harness` starts processes in a unique
 //! temporary directory and cleans them up.
 
+mod adaptive;
 mod deploy_files;
 mod distributed;
 mod external_model;

@@ -13,6 +13,9 @@ pub const Z95: f64 = 1.959_963_984_540_054;
 /// at a point and a warning is given (common practice, no source).
 pub const SD_RATIO_WARN: f64 = 0.8;
 
+/// Above this predicted failure rate a point is said to fail often (our choice).
+pub const FAILURE_WARN: f64 = 0.2;
+
 /// Tolerance on the unit-cube box edges (rounding of stored values).
 const BOX_TOL: f64 = 1e-9;
 
@@ -242,6 +245,20 @@ pub fn predict(
                         p.name,
                         short(x)
                     ));
+                }
+            }
+            if f.metric == crate::fitter::FAILURE_RATE {
+                // A rate: shown inside [0, 1].
+                if let Some(m) = metrics.last_mut() {
+                    m.mean = m.mean.clamp(0.0, 1.0);
+                    m.lower95 = m.lower95.clamp(0.0, 1.0);
+                    m.upper95 = m.upper95.clamp(0.0, 1.0);
+                    if m.mean > FAILURE_WARN {
+                        add(format!(
+                            "runs fail here about {:.0}% of the time (predicted from the failed runs of the sweep)",
+                            100.0 * m.mean
+                        ));
+                    }
                 }
             }
             if sd_ratio > SD_RATIO_WARN {

@@ -1021,6 +1021,37 @@ impl Store {
         Ok(out)
     }
 
+    /// Records a fact about the sweep (`key` -> `value`) in the `meta` table;
+    /// `None` removes it.
+    pub fn set_note(&mut self, key: &str, value: Option<&str>) -> Result<(), StoreError> {
+        let tx = self.conn.transaction()?;
+        check_holder(self.holder.as_deref(), &self.path, &tx)?;
+        let k = format!("note.{key}");
+        match value {
+            Some(v) => tx.execute(
+                "INSERT INTO meta (key, value) VALUES (?1, ?2)
+                 ON CONFLICT(key) DO UPDATE SET value = excluded.value",
+                params![k, v],
+            )?,
+            None => tx.execute("DELETE FROM meta WHERE key = ?1", params![k])?,
+        };
+        tx.commit()?;
+        Ok(())
+    }
+
+    /// A fact recorded with [`Store::set_note`].
+    pub fn note(&self, key: &str) -> Result<Option<String>, StoreError> {
+        Ok(self
+            .conn
+            .query_row(
+                "SELECT value FROM meta WHERE key = ?1",
+                params![format!("note.{key}")],
+                |r| r.get::<_, String>(0),
+            )
+            .optional()
+            .map_err(|e| StoreError::from(e).at(&self.path))?)
+    }
+
     /// Replaces the stored sweep file (a compatible edit: a raised budget,
     /// another strategy); see `Spec::continues`.
     pub fn update_spec_text(

@@ -1,0 +1,147 @@
+//! The adaptive search through `tessera run`: published minima found,
+//! failing regions avoided and named, the same points on any number of
+//! workers, early stopping.
+
+use crate::harness::*;
+use std::path::Path;
+
+/// Known Branin minimum 5/(4 pi) (Surjanovic & Bingham VLSE; Dixon & Szegő 1978).
+const BRANIN_MIN: f64 = 0.397_887_357_729_738;
+
+fn run_ok(dir: &Path, args: &[&str]) {
+    let out = run_in(dir, args);
+    ok(&out, &format!("{args:?}"));
+}
+
+/// The best objective value in a finished sweep's status.
+fn best(db: &Path) -> f64 {
+    let st = status(db).expect("status");
+    st["best"]["objective"].as_f64().expect("a best point")
+}
+
+fn branin_file(dir: &Path, seed: u32) -> std::path::PathBuf {
+    let p = dir.join(format!("branin-{seed}.toml"));
+    std::fs::write(
+        &p,
+        format!(
+            "name = \"branin\"\nseed = {seed}\nbudget = 40\ninitial = 10\n\
+             [model]\nname = \"branin\"\n[params.x1]\nrange = [-5.0, 10.0]\n\
+             [params.x2]\nrange = [0.0, 15.0]\n[objective]\nminimize = \"value\"\n"
+        ),
+    )
+    .expect("write");
+    p
+}
+
+/// Branin, budget 40 with 10 initial points: within 0.01 of the published
+/// minimum for at least 4 of 5 seeds (the 0.01 and 4 of 5 are our targets).
+#[test]
+fn branin_minimum_is_found_within_forty_runs() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let mut found = Vec::new();
+    for seed in 1..=5 {
+        let f = branin_file(dir, seed);
+        run_ok(dir, &["run", f.to_str().expect("path"), "--workers", "2"]);
+        found.push(best(&f.with_extension("db")));
+    }
+    let close = found.iter().filter(|v| **v - BRANIN_MIN < 0.01).count();
+    assert!(close >= 4, "best values {found:?}");
+}
+
+/// The same sweep file gives the same points on one worker and on three.
+#[test]
+fn a_reproducible_sweep_gives_the_same_points_on_any_number_of_workers() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let f = branin_file(dir, 3);
+    let f = f.to_str().expect("path");
+    run_ok(dir, &["run", f, "--db", "one.db", "--workers", "1"]);
+    run_ok(dir, &["run", f, "--db", "three.db", "--workers", "3"]);
+    let points = |db: &str| -> Vec<(String, String, String)> {
+        export_rows(&dir.join(db))
+            .into_iter()
+            .map(|r| (r["point"].clone(), r["x1"].clone(), r["x2"].clone()))
+            .collect()
+    };
+    let (a, b) = (points("one.db"), points("three.db"));
+    assert_eq!(a.len(), 40);
+    assert_eq!(a, b, "different points on one and on three workers");
+}
+
+/// A simulator that fails in one corner of the box, where its objective
+/// would be best: at most a quarter of the adaptive points go there, and
+/// `status` says where runs fail.
+#[test]
+fn a_failing_corner_is_learned_and_named() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    std::fs::write(
+        dir.join("corner.py"),
+        "import json, sys\n\
+         p = json.load(sys.stdin)['inputs']\n\
+         x, y = p['x'], p['y']\n\
+         if x > 0.75 and y > 0.75:\n\
+         \x20   sys.exit('the solver diverged')\n\
+         print(json.dumps({'value': (x - 1) ** 2 + (y - 1) ** 2}))\n",
+    )
+    .expect("write");
+    let spec = dir.join("corner.toml");
+    std::fs::write(
+        &spec,
+        "name = \"corner\"\nseed = 4\nbudget = 40\ninitial = 12\nretries = 0\n\
+         [model]\nname = \"corner\"\ncommand = [\"python3\", \"corner.py\"]\n\
+         [params.x]\nrange = [0.0, 1.0]\n[params.y]\nrange = [0.0, 1.0]\n\
+         [objective]\nminimize = \"value\"\n",
+    )
+    .expect("write");
+    run_ok(dir, &["run", "corner.toml", "--workers", "2"]);
+    let rows = export_rows(&dir.join("corner.db"));
+    let adaptive: Vec<_> = rows.iter().filter(|r| r["origin"] != "design").collect();
+    assert_eq!(adaptive.len(), 28);
+    let in_corner = adaptive
+        .iter()
+        .filter(|r| {
+            let x: f64 = r["x"].parse().expect("x");
+            let y: f64 = r["y"].parse().expect("y");
+            x > 0.75 && y > 0.75
+        })
+        .count();
+    assert!(
+        in_corner * 4 <= adaptive.len(),
+        "{in_corner} of 28 adaptive points in the failing corner"
+    );
+    let st = status(&dir.join("corner.db")).expect("status");
+    let region = st["failure_region"].as_str().unwrap_or("");
+    assert!(
+        region.contains("runs fail mostly where")
+            && region.contains("x >=")
+            && region.contains("y >="),
+        "{st}"
+    );
+}
+
+/// A stop rule ends the sweep before its budget and says why.
+#[test]
+fn the_stop_rule_ends_a_sweep_early_and_says_why() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let f = dir.join("stop.toml");
+    std::fs::write(
+        &f,
+        "name = \"stop\"\nseed = 2\nbudget = 200\ninitial = 10\n\
+         [model]\nname = \"branin\"\n[params.x1]\nrange = [-5.0, 10.0]\n\
+         [params.x2]\nrange = [0.0, 15.0]\n[objective]\nminimize = \"value\"\n\
+         [stop]\nexpected_improvement_below = 0.001\nfor_rounds = 2\n",
+    )
+    .expect("write");
+    run_ok(dir, &["run", "stop.toml", "--workers", "2"]);
+    let st = status(&dir.join("stop.db")).expect("status");
+    assert!(st["points"].as_u64().unwrap_or(0) < 200, "{st}");
+    assert_eq!(st["finished"].as_bool(), Some(true), "{st}");
+    let why = st["stop_reason"].as_str().unwrap_or("");
+    assert!(
+        why.contains("expected improvement stayed below 0.001"),
+        "{st}"
+    );
+}
