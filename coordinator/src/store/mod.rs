@@ -1041,15 +1041,14 @@ impl Store {
 
     /// A fact recorded with [`Store::set_note`].
     pub fn note(&self, key: &str) -> Result<Option<String>, StoreError> {
-        Ok(self
-            .conn
+        self.conn
             .query_row(
                 "SELECT value FROM meta WHERE key = ?1",
                 params![format!("note.{key}")],
                 |r| r.get::<_, String>(0),
             )
             .optional()
-            .map_err(|e| StoreError::from(e).at(&self.path))?)
+            .map_err(|e| StoreError::from(e).at(&self.path))
     }
 
     /// Replaces the stored sweep file (a compatible edit: a raised budget,
