@@ -409,7 +409,7 @@ impl Scheduler {
             evaluation_id: eid,
             point_id: p.point_id,
             replicate: p.replicate,
-            seed: p.seed,
+            seed: crate::seed::attempt_seed(p.seed, p.failures + 1),
             params,
             attempt: p.failures + 1,
         };

@@ -37,3 +37,15 @@ pub fn replicate_seed(sweep_seed: u64, point_index: u64, replicate: u32) -> u64 
     h = splitmix64_mix(h ^ splitmix64_nth(u64::from(replicate), 3));
     h >> 1
 }
+
+/// Seed of attempt `attempt` (from 1) of a run whose replicate seed is
+/// `seed`: the replicate seed itself on the first attempt; after a failure,
+/// a new seed derived from both, because a simulator that is deterministic
+/// in its seed would only fail the same way again. Still fixed by the sweep
+/// seed, so a sweep stays reproducible.
+pub fn attempt_seed(seed: u64, attempt: u32) -> u64 {
+    if attempt <= 1 {
+        return seed;
+    }
+    splitmix64_mix(seed ^ splitmix64_nth(u64::from(attempt), 4)) >> 1
+}

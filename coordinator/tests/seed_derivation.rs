@@ -66,3 +66,20 @@ fn replicate_seeds_are_distinct_over_a_grid() {
         }
     }
 }
+
+/// A retry after a failure runs with a new seed, derived from the replicate
+/// seed and the attempt (requirement: a simulator deterministic in its seed
+/// would fail the same way again); the first attempt keeps the replicate seed.
+#[test]
+fn retries_get_their_own_seeds() {
+    use tessera_coordinator::seed::{attempt_seed, replicate_seed};
+    let s = replicate_seed(7, 3, 1);
+    assert_eq!(attempt_seed(s, 1), s);
+    let seeds: Vec<u64> = (1..=5).map(|a| attempt_seed(s, a)).collect();
+    let mut distinct = seeds.clone();
+    distinct.sort_unstable();
+    distinct.dedup();
+    assert_eq!(distinct.len(), 5, "{seeds:?}");
+    assert!(seeds.iter().all(|v| *v < 1 << 63));
+    assert_eq!(attempt_seed(s, 3), attempt_seed(s, 3));
+}
