@@ -25,7 +25,9 @@ pub enum ExportFormat {
 natural units, every metric the model reported, and why it failed if it did.\n\n\
 Columns: point, origin, replicate, seed, status, one column per parameter, one \
 per metric (the union over all runs; empty where a run did not report it), \
-failure_kind, failure_reason, stderr_tail, worker, attempts, started_unix_ms, ended_unix_ms. \
+failure_kind, failure_reason, stderr_tail, worker, attempts, started_unix_ms, ended_unix_ms, \
+started_utc, ended_utc (ISO 8601). With --per-point: one row per point with each metric's \
+mean, sd and n; with --proposals: the proposed points and what the planner believed there. \
 The database may be read while the sweep is still running.",
     after_help = "\
 Examples:
@@ -33,6 +35,8 @@ Examples:
   tessera export --db sweep.db --out results.csv       CSV into a file
   tessera export --db sweep.db --units --out results.csv   headers like \"height_mean [um]\"
   tessera export --db sweep.db --format jsonl > runs.jsonl
+  tessera export --db sweep.db --per-point             one row per point: means, sds, counts
+  tessera export --db sweep.db --proposals             why each adaptive point was chosen
 
 In R: read.csv(\"results.csv\"); in Python: pandas.read_csv(\"results.csv\")."
 )]
@@ -50,6 +54,16 @@ pub struct ExportArgs {
     /// Add units to CSV headers, e.g. "height_mean [um]".
     #[arg(long)]
     pub units: bool,
+    /// One row per point instead of per run: each metric's mean, sd and
+    /// number of finished replicates, and what the planner believed when it
+    /// proposed the point.
+    #[arg(long, conflicts_with = "proposals")]
+    pub per_point: bool,
+    /// Only the proposed points (not the initial design), one row each, with
+    /// the strategy, acquisition value, predicted mean and sd and the
+    /// surrogate that chose them.
+    #[arg(long)]
+    pub proposals: bool,
 }
 
 /// Runs `tessera export`.
@@ -66,9 +80,17 @@ pub fn run(args: ExportArgs) -> anyhow::Result<ExitCode> {
     let evals = store.evaluations(sweep.id)?;
     let table = Table::new(&spec, &points, &evals);
     let mut buf = Vec::new();
-    match args.format {
-        ExportFormat::Csv => table.write_csv(&mut buf, args.units)?,
-        ExportFormat::Jsonl => table.write_jsonl(&mut buf)?,
+    if args.per_point || args.proposals {
+        let rows = per_point_rows(&table, args.proposals);
+        match args.format {
+            ExportFormat::Csv => write_rows_csv(&mut buf, &rows)?,
+            ExportFormat::Jsonl => write_rows_jsonl(&mut buf, &rows)?,
+        }
+    } else {
+        match args.format {
+            ExportFormat::Csv => table.write_csv(&mut buf, args.units)?,
+            ExportFormat::Jsonl => table.write_jsonl(&mut buf)?,
+        }
     }
     match &args.out {
         Some(path) => write_atomically(path, &buf)?,
@@ -127,7 +149,136 @@ const FIXED_AFTER: &[&str] = &[
     "attempts",
     "started_unix_ms",
     "ended_unix_ms",
+    "started_utc",
+    "ended_utc",
 ];
+
+/// Unix milliseconds as ISO 8601 (RFC 3339) in UTC, to the millisecond.
+fn utc(ms: Option<u64>) -> String {
+    ms.map_or(String::new(), |t| {
+        humantime::format_rfc3339_millis(
+            std::time::UNIX_EPOCH + std::time::Duration::from_millis(t),
+        )
+        .to_string()
+    })
+}
+
+/// One output row: column name and value, in order.
+type Row = Vec<(String, serde_json::Value)>;
+
+/// One row per point (only proposed points with `only_proposed`).
+fn per_point_rows(t: &Table<'_>, only_proposed: bool) -> Vec<Row> {
+    use serde_json::{json, Value};
+    let mut by_point: BTreeMap<i64, Vec<&EvaluationRecord>> = BTreeMap::new();
+    for e in t.evals {
+        by_point.entry(e.point_id).or_default().push(e);
+    }
+    let mut points: Vec<&PointRecord> = t.points.values().copied().collect();
+    points.sort_by_key(|p| p.idx);
+    let num =
+        |x: f64| -> Value { serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number) };
+    let mut rows = Vec::new();
+    for p in points {
+        if only_proposed && p.origin == tessera_coordinator::store::PointOrigin::Design {
+            continue;
+        }
+        let evals = by_point.get(&p.id).cloned().unwrap_or_default();
+        let mut row: Row = vec![
+            ("point".into(), json!(p.idx)),
+            ("origin".into(), json!(p.origin.as_str())),
+            ("batch".into(), json!(p.batch)),
+        ];
+        for (j, q) in t.spec.params.iter().enumerate() {
+            let v = p.values.get(j).copied().unwrap_or(f64::NAN);
+            let value = if q.integer {
+                json!(v.round() as i64)
+            } else {
+                num(v)
+            };
+            row.push((q.name.clone(), value));
+        }
+        let done: Vec<&&EvaluationRecord> = evals
+            .iter()
+            .filter(|e| e.status == tessera_coordinator::store::EvalStatus::Done)
+            .collect();
+        let failed = evals
+            .iter()
+            .filter(|e| e.status == tessera_coordinator::store::EvalStatus::Failed)
+            .count();
+        row.push(("runs_done".into(), json!(done.len())));
+        row.push(("runs_failed".into(), json!(failed)));
+        if !only_proposed {
+            for m in &t.metrics {
+                let v: Vec<f64> = done
+                    .iter()
+                    .filter_map(|e| e.metrics.get(m).copied())
+                    .collect();
+                let n = v.len();
+                let mean = if n > 0 {
+                    v.iter().sum::<f64>() / n as f64
+                } else {
+                    f64::NAN
+                };
+                let sd = if n > 1 {
+                    (v.iter().map(|x| (x - mean) * (x - mean)).sum::<f64>() / (n - 1) as f64).sqrt()
+                } else {
+                    f64::NAN
+                };
+                row.push((format!("{m}_mean"), num(mean)));
+                row.push((format!("{m}_sd"), num(sd)));
+                row.push((format!("{m}_n"), json!(n)));
+            }
+        }
+        let info = p.proposal.as_ref();
+        row.push((
+            "acquisition".into(),
+            info.map_or(Value::Null, |i| num(i.acquisition)),
+        ));
+        row.push((
+            "predicted_mean".into(),
+            info.map_or(Value::Null, |i| num(i.predicted_mean)),
+        ));
+        row.push((
+            "predicted_sd".into(),
+            info.map_or(Value::Null, |i| num(i.predicted_sd)),
+        ));
+        row.push((
+            "surrogate".into(),
+            info.map_or(Value::Null, |i| json!(i.surrogate)),
+        ));
+        rows.push(row);
+    }
+    rows
+}
+
+fn write_rows_csv(out: &mut Vec<u8>, rows: &[Row]) -> anyhow::Result<()> {
+    let mut w = csv::Writer::from_writer(out);
+    if let Some(first) = rows.first() {
+        w.write_record(first.iter().map(|(k, _)| k.as_str()))?;
+    }
+    for r in rows {
+        w.write_record(r.iter().map(|(_, v)| match v {
+            serde_json::Value::Null => String::new(),
+            serde_json::Value::String(s) => s.clone(),
+            serde_json::Value::Number(n) => match n.as_f64() {
+                Some(x) if n.is_f64() => tessera_models::text::exact(x),
+                _ => n.to_string(),
+            },
+            other => other.to_string(),
+        }))?;
+    }
+    w.flush()?;
+    Ok(())
+}
+
+fn write_rows_jsonl(out: &mut Vec<u8>, rows: &[Row]) -> anyhow::Result<()> {
+    for r in rows {
+        let obj: serde_json::Map<String, serde_json::Value> = r.iter().cloned().collect();
+        serde_json::to_writer(&mut *out, &obj)?;
+        out.push(b'\n');
+    }
+    Ok(())
+}
 
 impl<'a> Table<'a> {
     fn new(spec: &'a spec::Spec, points: &'a [PointRecord], evals: &'a [EvaluationRecord]) -> Self {
@@ -213,6 +364,8 @@ impl<'a> Table<'a> {
             row.push(e.attempts.to_string());
             row.push(e.started_unix_ms.map_or(String::new(), |t| t.to_string()));
             row.push(e.ended_unix_ms.map_or(String::new(), |t| t.to_string()));
+            row.push(utc(e.started_unix_ms));
+            row.push(utc(e.ended_unix_ms));
             w.write_record(&row)?;
         }
         w.flush()?;
@@ -248,6 +401,8 @@ impl<'a> Table<'a> {
                 "attempts": e.attempts,
                 "started_unix_ms": e.started_unix_ms,
                 "ended_unix_ms": e.ended_unix_ms,
+                "started_utc": e.started_unix_ms.map(|t| utc(Some(t))),
+                "ended_utc": e.ended_unix_ms.map(|t| utc(Some(t))),
             });
             serde_json::to_writer(&mut *out, &row)?;
             out.push(b'\n');

@@ -145,3 +145,50 @@ fn the_stop_rule_ends_a_sweep_early_and_says_why() {
         "{st}"
     );
 }
+
+/// What the planner believed when it proposed each point is stored and
+/// exported; the per-point export gives each metric's mean, sd and count.
+#[test]
+fn proposals_and_per_point_means_are_exported() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let f = branin_file(dir, 6);
+    run_ok(dir, &["run", f.to_str().expect("path"), "--workers", "2"]);
+    let db = f.with_extension("db");
+    let out = run_in(
+        dir,
+        &["export", "--proposals", "--db", db.to_str().expect("path")],
+    );
+    ok(&out, "export --proposals");
+    let mut rd = csv::Reader::from_reader(out.stdout.as_slice());
+    let rows: Vec<csv::StringRecord> = rd.records().map(|r| r.expect("row")).collect();
+    let header = rd.headers().expect("header").clone();
+    let col = |name: &str| header.iter().position(|h| h == name).expect(name);
+    assert_eq!(rows.len(), 30, "40 points, 10 in the design");
+    for r in &rows {
+        assert!(r[col("surrogate")].starts_with("value from "), "{r:?}");
+        let mean: f64 = r[col("predicted_mean")].parse().expect("a predicted mean");
+        let sd: f64 = r[col("predicted_sd")].parse().expect("a predicted sd");
+        assert!(mean.is_finite() && sd >= 0.0, "{r:?}");
+    }
+    let out = run_in(
+        dir,
+        &[
+            "export",
+            "--per-point",
+            "--format",
+            "jsonl",
+            "--db",
+            db.to_str().expect("path"),
+        ],
+    );
+    ok(&out, "export --per-point");
+    let lines: Vec<serde_json::Value> = text(&out.stdout)
+        .lines()
+        .map(|l| serde_json::from_str(l).expect("JSON"))
+        .collect();
+    assert_eq!(lines.len(), 40);
+    assert!(lines
+        .iter()
+        .all(|l| l["value_n"] == 1 && l["value_mean"].is_f64()));
+}

@@ -279,18 +279,18 @@ fn export_writes_one_row_per_evaluation() {
     assert_eq!(
         lines[0],
         "point,origin,replicate,seed,status,height_mean,density,reach,territory_cv,coverage,\
-         failure_kind,failure_reason,stderr_tail,worker,attempts,started_unix_ms,ended_unix_ms"
+         failure_kind,failure_reason,stderr_tail,worker,attempts,started_unix_ms,ended_unix_ms,started_utc,ended_utc"
     );
     assert_eq!(lines.len(), 5, "2 points x 2 replicates + header");
     let seed = tessera_coordinator::seed::replicate_seed(7, 0, 0);
     assert_eq!(
         lines[1],
-        format!("0,design,0,{seed},done,20,5,5,0.25,0.5,,,,bench-1,1,10,20")
+        format!("0,design,0,{seed},done,20,5,5,0.25,0.5,,,,bench-1,1,10,20,1970-01-01T00:00:00.010Z,1970-01-01T00:00:00.020Z")
     );
     assert!(lines[2].starts_with("0,design,1,"), "{}", lines[2]);
     assert!(lines[2].contains(",queued,"), "{}", lines[2]);
     assert!(
-        lines[4].ends_with(",timeout,\"ran longer than 10m, stopped\",,bench-2,1,30,40"),
+        lines[4].ends_with(",timeout,\"ran longer than 10m, stopped\",,bench-2,1,30,40,1970-01-01T00:00:00.030Z,1970-01-01T00:00:00.040Z"),
         "{}",
         lines[4]
     );
