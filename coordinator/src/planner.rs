@@ -33,6 +33,10 @@ pub const MIN_POINTS_FOR_FIT: usize = fitter::MIN_POINTS;
 /// starts in between (our choice; see docs/benchmarks.md for the cost).
 pub const FULL_SEARCH_EVERY: u32 = 8;
 
+/// Above this many points, rounds between full searches keep the
+/// hyperparameters instead of warm-starting their search (our choice).
+pub const HOLD_ABOVE: usize = 300;
+
 /// What one planning round produced.
 #[derive(Debug, Default)]
 pub struct Plan {
@@ -94,13 +98,22 @@ impl Planner {
             );
         };
         let n = job.obs.y.len();
+        // Afresh at first, every few rounds, and while the data are small
+        // whenever they grew by a quarter.
         let full = self.last.is_none()
             || self.rounds.is_multiple_of(FULL_SEARCH_EVERY)
-            || n * 4 >= self.points_at_full_search * 5;
+            || (n <= HOLD_ABOVE && n * 4 >= self.points_at_full_search * 5);
+        // Between full searches: a warm start (one L-BFGS run) on small
+        // data; on large data only the new factorisation (the length scales
+        // hardly move between rounds, and one LML evaluation costs O(n^3)).
         let opts = FitOptions {
             seed: job.seed,
             restarts: if full { 5 } else { 0 },
             start: if full { None } else { self.last.clone() },
+            hold: !full && n > HOLD_ABOVE,
+            // A full search on a subset: about a second even at thousands
+            // of points (the posterior still uses every point).
+            max_hyper_points: HOLD_ABOVE,
             ..FitOptions::default()
         };
         self.rounds += 1;
@@ -173,7 +186,13 @@ impl Planner {
             fit.metric,
             fit.n_results,
             fit.n_points,
-            if full { "full search" } else { "warm start" },
+            if full {
+                "full search"
+            } else if opts.hold {
+                "hyperparameters kept"
+            } else {
+                "warm start"
+            },
             self.rounds
         );
         let best_acquisition = proposals

@@ -660,9 +660,9 @@ impl Scheduler {
     /// [`DEFAULT_REPRODUCIBLE_BATCH`]) when every evaluation so far is final.
     /// Otherwise the planner keeps ahead of the workers: once half the
     /// initial design has results, it plans whenever fewer evaluations wait
-    /// in the queue than the connected workers have slots, so that a worker
-    /// finds the next point ready (as many points as fill the shortfall, or
-    /// `batch`).
+    /// in the queue than half the connected workers' slots, so that a worker
+    /// finds the next point ready (as many points as fill the queue to the
+    /// slots' worth, or `batch`).
     pub fn wants_plan(&self) -> Option<usize> {
         if self.planning || self.stop_reason.is_some() {
             return None;
@@ -697,7 +697,10 @@ impl Scheduler {
                 .map(|w| w.info.slots as usize)
                 .sum::<usize>()
                 .max(1);
-            if self.queue.len() >= slots {
+            // Plan when less than half the slots' worth waits, for as many
+            // points as fill the queue to the slots' worth: large batches
+            // are cheap to plan, small ones cost a search per point.
+            if 2 * self.queue.len() >= slots {
                 return None;
             }
             let shortfall = (slots - self.queue.len()).div_ceil(reps);

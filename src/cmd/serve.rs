@@ -137,6 +137,15 @@ pub fn run(args: ServeArgs) -> anyhow::Result<ExitCode> {
                         tokio::time::sleep(Duration::from_millis(500)).await;
                     }
                     eprintln!("sweep finished");
+                    // Workers learn that the sweep is finished when they next
+                    // ask for work; wait (up to 10 s) until they have left,
+                    // so none is left retrying a coordinator that is gone.
+                    let since = std::time::Instant::now();
+                    while since.elapsed() < Duration::from_secs(10)
+                        && done_engine.status().workers.iter().any(|w| w.connected)
+                    {
+                        tokio::time::sleep(Duration::from_millis(100)).await;
+                    }
                 };
                 tokio::select! {
                     _ = net::stop_signal() => {}

@@ -30,7 +30,7 @@ use rand_distr::StandardNormal;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
-use crate::gp::Gp;
+use crate::gp::{Gp, IntegratedVariance};
 
 /// 1/sqrt(2 pi).
 const INV_SQRT_2PI: f64 = 0.398_942_280_401_432_7;
@@ -166,6 +166,9 @@ const SEARCH_BATCH: usize = 12;
 /// interior of the box rather than its corners, where the sd is largest
 /// (our choice: 3).
 const UNCERTAINTY_ONLY: f64 = 3.0;
+/// Batches larger than this are chosen from one scoring of the candidates
+/// instead of one search per point (see [`large_batch`]).
+const LARGE_BATCH: usize = 16;
 /// Reference points for the integrated variance (Monte Carlo over the box).
 const N_REFERENCE: usize = 256;
 
@@ -344,13 +347,13 @@ pub fn propose(
         Some(s) => s(&x),
         None => x,
     };
-    let mut model = gp.clone();
-    for p in ctx.pending.iter().filter(|p| p.len() == d) {
-        let mu = model.predict_mean(std::slice::from_ref(p))[0];
-        if let Ok(m) = model.update_believer(p, mu) {
-            model = m;
-        }
-    }
+    let pending: Vec<Vec<f64>> = ctx
+        .pending
+        .iter()
+        .filter(|p| p.len() == d)
+        .cloned()
+        .collect();
+    let mut model = gp.believe_many(&pending).unwrap_or_else(|_| gp.clone());
     blocked.extend(ctx.pending.iter().cloned());
     // Work per proposal shrinks with the batch and the data, so that a
     // large batch on a large sweep still takes about a second.
@@ -362,6 +365,11 @@ pub fn propose(
     } else {
         N_STARTS
     };
+    if q > LARGE_BATCH {
+        return large_batch(
+            &model, strategy, q, ctx, &blocked, sep2, &reference, &mut rng,
+        );
+    }
     let mut out: Vec<Proposal> = Vec::with_capacity(q);
     for _ in 0..q {
         let free = |p: &[f64], blocked: &[Vec<f64>]| blocked.iter().all(|b| dist2(p, b) >= sep2);
@@ -387,6 +395,10 @@ pub fn propose(
             }
         }
         let p_fail = p_fail_many(ctx.failure, &cands);
+        // The variance-reduction criterion of the current model, prepared
+        // once per proposal (the reference solves) and only if needed.
+        let iv_cell: std::sync::OnceLock<IntegratedVariance<'_>> = std::sync::OnceLock::new();
+        let iv = || iv_cell.get_or_init(|| IntegratedVariance::new(&model, &reference));
         let score_many = |effective: Strategy, m: &Gp, pts: &[Vec<f64>], pf: &[f64]| -> Vec<f64> {
             match effective {
                 Strategy::Improve => m
@@ -395,8 +407,8 @@ pub fn propose(
                     .zip(pf)
                     .map(|(p, f)| expected_improvement(f_best, p.mean, p.sd) * (1.0 - f))
                     .collect(),
-                Strategy::Explore => m
-                    .integrated_variance_reduction(&reference, pts)
+                Strategy::Explore => iv()
+                    .reduction(pts)
                     .into_iter()
                     .zip(pf)
                     .map(|(v, f)| v * (1.0 - f))
@@ -504,10 +516,7 @@ pub fn propose(
         let pred = model.predict(std::slice::from_ref(&chosen))[0];
         let acquisition = match effective {
             Strategy::Improve => expected_improvement(f_best, pred.mean, pred.sd) * (1.0 - pf),
-            Strategy::Explore => {
-                model.integrated_variance_reduction(&reference, std::slice::from_ref(&chosen))[0]
-                    * (1.0 - pf)
-            }
+            Strategy::Explore => iv().reduction(std::slice::from_ref(&chosen))[0] * (1.0 - pf),
         };
         if let Ok(m) = model.update_believer(&chosen, pred.mean) {
             model = m;
@@ -520,6 +529,133 @@ pub fn propose(
             sd: pred.sd,
             p_fail: pf,
         });
+    }
+    out
+}
+
+/// A large batch from one scoring of the candidates, so that hundreds of
+/// points take about a second: for [`Strategy::Improve`], expected
+/// improvement with local penalisation (Gonzalez, Dai, Hennig & Lawrence
+/// 2016, "Batch Bayesian optimization via local penalization", AISTATS):
+/// after each choice x_j the acquisition is multiplied by
+/// phi(x) = Phi((M + L |x - x_j| - mu(x_j)) / s(x_j)), the probability that
+/// x lies outside the ball around x_j that cannot hold the minimum, with M
+/// the best predicted mean and L the largest gradient norm of the mean over
+/// the best candidates. For [`Strategy::Explore`], the points of largest
+/// integrated-variance reduction that keep the minimum distance from each
+/// other (a greedy spread over the best candidates).
+#[allow(clippy::too_many_arguments)]
+fn large_batch(
+    model: &Gp,
+    strategy: Strategy,
+    q: usize,
+    ctx: &Context<'_>,
+    blocked: &[Vec<f64>],
+    sep2: f64,
+    reference: &[Vec<f64>],
+    rng: &mut ChaCha8Rng,
+) -> Vec<Proposal> {
+    let d = model.dim();
+    let n_cands = (8 * q).clamp(N_CANDIDATES, 8192);
+    let mut cands = lhs(n_cands, d, rng);
+    let sampled = model.observed_x();
+    let at_sampled = model.predict_mean(&sampled);
+    let f_best = at_sampled.iter().copied().fold(f64::INFINITY, f64::min);
+    if strategy == Strategy::Improve {
+        let mut order: Vec<usize> = (0..sampled.len()).collect();
+        order.sort_by(|&a, &b| at_sampled[a].total_cmp(&at_sampled[b]));
+        for &i in order.iter().take(N_INCUMBENTS) {
+            for scale in [0.02, 0.1] {
+                for _ in 0..N_LOCAL {
+                    cands.push(
+                        sampled[i]
+                            .iter()
+                            .map(|&v| (v + scale * gauss(rng)).clamp(0.0, 1.0))
+                            .collect(),
+                    );
+                }
+            }
+        }
+    }
+    if let Some(snap) = ctx.snap {
+        for c in cands.iter_mut() {
+            *c = snap(c);
+        }
+    }
+    let pf = p_fail_many(ctx.failure, &cands);
+    let preds = model.predict(&cands);
+    let mut score: Vec<f64> = match strategy {
+        Strategy::Improve => preds
+            .iter()
+            .zip(&pf)
+            .map(|(p, f)| expected_improvement(f_best, p.mean, p.sd) * (1.0 - f))
+            .collect(),
+        Strategy::Explore => IntegratedVariance::new(model, reference)
+            .reduction(&cands)
+            .into_iter()
+            .zip(&pf)
+            .map(|(v, f)| v * (1.0 - f))
+            .collect(),
+    };
+    // When expected improvement has vanished everywhere, spread by the sd.
+    if strategy == Strategy::Improve && score.iter().all(|&v| v <= 0.0) {
+        score = preds
+            .iter()
+            .zip(&pf)
+            .map(|(p, f)| p.sd * (1.0 - f))
+            .collect();
+    }
+    let lipschitz = if strategy == Strategy::Improve {
+        let mut idx: Vec<usize> = (0..cands.len()).collect();
+        idx.sort_by(|&a, &b| score[b].total_cmp(&score[a]));
+        idx.iter()
+            .take(64)
+            .map(|&i| {
+                let g = model.predict_gradient(&cands[i]);
+                g.d_mean.iter().map(|v| v * v).sum::<f64>().sqrt()
+            })
+            .fold(1e-12, f64::max)
+    } else {
+        0.0
+    };
+    // Candidates far enough from every point in the sweep; kept up to date
+    // as points are chosen.
+    let mut far: Vec<bool> = cands
+        .par_iter()
+        .map(|c| blocked.iter().all(|b| dist2(c, b) >= sep2))
+        .collect();
+    let mut taken = vec![false; cands.len()];
+    let mut out = Vec::with_capacity(q);
+    for _ in 0..q {
+        let best = (0..cands.len())
+            .filter(|&i| far[i] && !taken[i])
+            .max_by(|&a, &b| score[a].total_cmp(&score[b]))
+            .or_else(|| {
+                (0..cands.len())
+                    .filter(|&i| !taken[i])
+                    .max_by(|&a, &b| score[a].total_cmp(&score[b]))
+            });
+        let Some(j) = best else {
+            break;
+        };
+        taken[j] = true;
+        out.push(Proposal {
+            x: cands[j].clone(),
+            acquisition: score[j],
+            mean: preds[j].mean,
+            sd: preds[j].sd,
+            p_fail: pf[j],
+        });
+        let s = preds[j].sd.max(1e-12 * (1.0 + f_best.abs()));
+        for (i, c) in cands.iter().enumerate() {
+            let r2 = dist2(c, &cands[j]);
+            if r2 < sep2 {
+                far[i] = false;
+            }
+            if strategy == Strategy::Improve {
+                score[i] *= normal_cdf((f_best + lipschitz * r2.sqrt() - preds[j].mean) / s);
+            }
+        }
     }
     out
 }

@@ -45,6 +45,11 @@ pub struct FitOptions {
     /// the previous fit when a few observations were added.
     #[serde(default)]
     pub start: Option<Hyper>,
+    /// Keep the `start` hyperparameters as they are (no optimisation): the
+    /// GP is only conditioned on the new data, at the cost of one
+    /// factorisation.
+    #[serde(default)]
+    pub hold: bool,
 }
 
 impl Default for FitOptions {
@@ -56,6 +61,7 @@ impl Default for FitOptions {
             fit_nugget: true,
             max_hyper_points: 1000,
             start: None,
+            hold: false,
         }
     }
 }
@@ -296,6 +302,13 @@ pub(super) fn fit(obs: &Observations, opts: &FitOptions) -> Result<Gp, GpError> 
     let d = validate(obs)?;
     let n = obs.y.len();
     let (y_mean, y_scale) = standardisation(&obs.y);
+    if let (true, Some(h)) = (opts.hold, &opts.start) {
+        if h.lengthscales.len() == d {
+            let mut gp = Gp::build(obs, opts.kernel, h.clone(), y_mean, y_scale)?;
+            gp.set_gls_mean();
+            return Ok(gp);
+        }
+    }
     let ys: Vec<f64> = obs.y.iter().map(|v| (v - y_mean) / y_scale).collect();
     let noise: Vec<f64> = obs
         .noise_var

@@ -9,6 +9,8 @@
 //! dk/dx_j = -s_f^2 c(r) (x_j - z_j) / l_j^2 with c(r) = (5/3)(1 + sqrt5 r)
 //! exp(-sqrt5 r) for Matern 5/2 and c = k_u for the squared exponential.
 
+use rayon::prelude::*;
+
 use super::kernel::{scaled_sq_dist, KernelKind};
 use super::linalg::solve_chol;
 use super::Gp;
@@ -109,66 +111,99 @@ impl Gp {
     /// units. This is the ALC criterion of Cohn (1996), as used for GP
     /// design by Gramacy & Lee (2009): for a new point x with noise t^2,
     /// delta(x) = (1/m) sum_z cov(z, x)^2 / (s2(x) + t^2).
+    /// [`IntegratedVariance`] keeps the per-reference work for many calls.
     #[track_caller]
     pub fn integrated_variance_reduction(
         &self,
         reference: &[Vec<f64>],
         xs: &[Vec<f64>],
     ) -> Vec<f64> {
-        self.weighted_variance_reduction(reference, None, xs)
+        IntegratedVariance::new(self, reference).reduction(xs)
     }
+}
 
-    /// As [`Gp::integrated_variance_reduction`], with reference point `j`
-    /// weighing `weights[j]` instead of 1/m (the weights need not sum to 1).
+/// The integrated-variance reduction of a GP over fixed reference points,
+/// with the solves K^-1 k(z) done once (n x m), so that each candidate
+/// costs O(n m) plus one posterior variance.
+pub struct IntegratedVariance<'a> {
+    gp: &'a Gp,
+    reference: &'a [Vec<f64>],
+    /// K^-1 k(z) for every reference point, row per point.
+    kz: Vec<Vec<f64>>,
+    inv_l: Vec<f64>,
+}
+
+impl std::fmt::Debug for IntegratedVariance<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("IntegratedVariance")
+            .field("reference", &self.reference.len())
+            .finish()
+    }
+}
+
+impl<'a> IntegratedVariance<'a> {
+    /// Prepares the criterion of `gp` over `reference`.
     #[track_caller]
-    pub fn weighted_variance_reduction(
-        &self,
-        reference: &[Vec<f64>],
-        weights: Option<&[f64]>,
-        xs: &[Vec<f64>],
-    ) -> Vec<f64> {
-        let (n, d) = (self.n, self.d);
+    pub fn new(gp: &'a Gp, reference: &'a [Vec<f64>]) -> Self {
+        let (n, d) = (gp.n, gp.d);
         assert!(
-            reference.iter().chain(xs).all(|p| p.len() == d),
+            reference.iter().all(|p| p.len() == d),
             "points must have dimension {d}"
         );
-        let m = reference.len();
+        let sf2 = gp.hyper.signal_var;
+        let inv_l: Vec<f64> = gp.hyper.lengthscales.iter().map(|l| 1.0 / l).collect();
+        let kz: Vec<Vec<f64>> = reference
+            .par_iter()
+            .map(|z| {
+                let mut col: Vec<f64> = (0..n)
+                    .map(|i| {
+                        sf2 * gp
+                            .kernel
+                            .unit(scaled_sq_dist(z, &gp.x[i * d..(i + 1) * d], &inv_l))
+                    })
+                    .collect();
+                solve_chol(&gp.chol, n, &mut col);
+                col
+            })
+            .collect();
+        IntegratedVariance {
+            gp,
+            reference,
+            kz,
+            inv_l,
+        }
+    }
+
+    /// The reduction at each of `xs` (natural units).
+    #[track_caller]
+    pub fn reduction(&self, xs: &[Vec<f64>]) -> Vec<f64> {
+        let gp = self.gp;
+        let (n, d) = (gp.n, gp.d);
+        let m = self.reference.len();
         if m == 0 {
             return vec![0.0; xs.len()];
         }
-        let sf2 = self.hyper.signal_var;
-        let inv_l: Vec<f64> = self.hyper.lengthscales.iter().map(|l| 1.0 / l).collect();
-        let kern = |a: &[f64], b: &[f64]| sf2 * self.kernel.unit(scaled_sq_dist(a, b, &inv_l));
-        // K^-1 k(z) for every reference point (n x m), once.
-        let mut kz: Vec<Vec<f64>> = reference
+        let sf2 = gp.hyper.signal_var;
+        let noise = gp.hyper.nugget + gp.jitter;
+        let s2 = gp.y_scale * gp.y_scale;
+        let kern = |a: &[f64], b: &[f64]| sf2 * gp.kernel.unit(scaled_sq_dist(a, b, &self.inv_l));
+        let var: Vec<f64> = gp
+            .predict(xs)
             .iter()
-            .map(|z| {
-                (0..n)
-                    .map(|i| kern(z, &self.x[i * d..(i + 1) * d]))
-                    .collect()
-            })
+            .map(|p| (p.sd / gp.y_scale).powi(2))
             .collect();
-        for col in kz.iter_mut() {
-            solve_chol(&self.chol, n, col);
-        }
-        let noise = self.hyper.nugget + self.jitter;
-        let s2 = self.y_scale * self.y_scale;
-        xs.iter()
-            .map(|x| {
-                let kx: Vec<f64> = (0..n)
-                    .map(|i| kern(x, &self.x[i * d..(i + 1) * d]))
-                    .collect();
-                let mut wx = kx.clone();
-                solve_chol(&self.chol, n, &mut wx);
-                let var_x = (sf2 - kx.iter().zip(&wx).map(|(a, b)| a * b).sum::<f64>()).max(0.0);
+        xs.par_iter()
+            .zip(var)
+            .map(|(x, var_x)| {
+                assert_eq!(x.len(), d, "points must have dimension {d}");
+                let kx: Vec<f64> = (0..n).map(|i| kern(x, &gp.x[i * d..(i + 1) * d])).collect();
                 let mut total = 0.0;
-                for (j, (z, kzi)) in reference.iter().zip(&kz).enumerate() {
+                for (z, kzi) in self.reference.iter().zip(&self.kz) {
                     // cov(z, x) = k(z, x) - k(z)^T K^-1 k(x)
                     let c = kern(z, x) - kzi.iter().zip(&kx).map(|(a, b)| a * b).sum::<f64>();
-                    let w = weights.map_or(1.0 / m as f64, |w| w[j]);
-                    total += w * c * c;
+                    total += c * c;
                 }
-                s2 * total / (var_x + noise)
+                s2 * total / (m as f64 * (var_x + noise))
             })
             .collect()
     }
