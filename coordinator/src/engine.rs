@@ -226,6 +226,7 @@ impl Engine {
         let mut sched = Scheduler::new(spec.clone(), opts.times, nonce, &points, &evaluations);
         let reproducible = spec.reproducible.unwrap_or(opts.reproducible_default);
         sched.set_reproducible(reproducible);
+        sched.set_waves(crate::scheduler::FileNotes::read(&store)?.waves);
         store.set_note(
             "reproducible",
             Some(if reproducible { "true" } else { "false" }),
@@ -383,6 +384,7 @@ impl Engine {
         tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
         // The planner's memory (warm starts); owned by this task alone.
         let mut planner = Planner::new();
+        planner.continue_waves(self.status().waves.len() as u32);
         let mut small_rounds = 0u32;
         loop {
             tokio::select! {
@@ -441,6 +443,24 @@ impl Engine {
                     tracing::error!(error = %e, "storing proposed points failed");
                     lock(&self.sched).set_planning(false);
                     continue;
+                }
+            }
+            if let Some(wave) = plan.wave.clone() {
+                tracing::info!(
+                    wave = wave.wave,
+                    fraction = wave.fraction,
+                    "calibration wave: share of the box not ruled out"
+                );
+                let all = {
+                    let mut s = lock(&self.sched);
+                    s.push_wave(wave);
+                    s.status(Instant::now()).waves
+                };
+                if let Ok(text) = serde_json::to_string(&all) {
+                    let _ = self
+                        .store
+                        .call(move |st| st.set_note(crate::scheduler::WAVES_NOTE, Some(&text)))
+                        .await;
                 }
             }
             // The objective's surrogate that chose the points is the one served.

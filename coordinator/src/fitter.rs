@@ -24,7 +24,8 @@ use crate::status::PointResults;
 use crate::store::{EvalStatus, EvaluationRecord, FitRecord, NewFit, PointRecord, Store};
 use serde::{Deserialize, Serialize};
 use std::collections::{BTreeMap, BTreeSet};
-use tessera_surrogate::gp::{self, FitOptions, Gp, KernelKind, Observations};
+use tessera_surrogate::gp::{self, FitOptions, Gp, KernelKind, Observations, Prediction};
+use tessera_surrogate::transform::{Natural, Transform};
 
 /// Why fits could not be made, read or stored.
 #[derive(Debug, thiserror::Error)]
@@ -72,6 +73,70 @@ pub struct MetricFit {
     pub loo: LooSummary,
     /// Smallest and largest sampled unit-cube coordinate of each parameter.
     pub sampled_box: Vec<[f64; 2]>,
+    /// The scale the GP was fitted on (its inputs are per-point means of
+    /// transformed replicate values).
+    pub transform: Transform,
+    /// Bounds of the metric (`None`: open); predictions are kept inside.
+    pub bounds: [Option<f64>; 2],
+}
+
+impl MetricFit {
+    /// Predictions on the metric's own scale: mean, sd and 95% interval of
+    /// the surrogate's mean outcome, mapped back through the transform and
+    /// kept inside the bounds.
+    pub fn predict(&self, xs: &[Vec<f64>]) -> Vec<Natural> {
+        self.gp
+            .predict(xs)
+            .into_iter()
+            .map(|p| self.natural(p))
+            .collect()
+    }
+
+    /// Predicted means only, on the metric's own scale (the back-transformed
+    /// fitted-scale mean, i.e. the median, when there is a transform: cheap,
+    /// for Monte Carlo averages where the surrogate's variance is handled
+    /// separately).
+    pub fn predict_median(&self, xs: &[Vec<f64>]) -> Vec<f64> {
+        self.gp
+            .predict_mean(xs)
+            .into_iter()
+            .map(|m| self.clamp(self.transform.inverse(m)))
+            .collect()
+    }
+
+    /// Maps a fitted-scale prediction to the metric's own scale.
+    pub fn natural(&self, p: Prediction) -> Natural {
+        let n = self.transform.natural(p.mean, p.sd);
+        Natural {
+            mean: self.clamp(n.mean),
+            sd: n.sd,
+            lower95: self.clamp(n.lower95),
+            upper95: self.clamp(n.upper95),
+            median: self.clamp(n.median),
+        }
+    }
+
+    /// Clamps a value into the metric's bounds.
+    pub fn clamp(&self, v: f64) -> f64 {
+        let v = match self.bounds[0] {
+            Some(lo) if v < lo => lo,
+            _ => v,
+        };
+        match self.bounds[1] {
+            Some(hi) if v > hi => hi,
+            _ => v,
+        }
+    }
+
+    /// The observed per-point means on the metric's own scale (the inverse
+    /// transform of the fitted values).
+    pub fn observed_natural(&self) -> Vec<f64> {
+        self.gp
+            .observed_y()
+            .into_iter()
+            .map(|y| self.transform.inverse(y))
+            .collect()
+    }
 }
 
 /// Leave-one-out diagnostics of a fit (closed form, GPML sec. 5.4.2;
@@ -95,9 +160,22 @@ pub struct LooSummary {
 }
 
 impl LooSummary {
-    /// Summarises the GP's closed-form leave-one-out predictions.
-    pub fn of(gp: &Gp, point_idx: Vec<u64>) -> LooSummary {
-        let loo = gp.loo();
+    /// Summarises the GP's closed-form leave-one-out predictions. The
+    /// standardised residuals, Q2 and coverage are those of the fitted
+    /// scale; the RMSE is in the metric's own units (the leave-one-out
+    /// medians mapped back through `transform`).
+    pub fn of(gp: &Gp, point_idx: Vec<u64>, transform: &Transform) -> LooSummary {
+        let mut loo = gp.loo();
+        if !transform.is_identity() {
+            let y = gp.observed_y();
+            let n = y.len().max(1) as f64;
+            let sq: f64 = y
+                .iter()
+                .zip(&loo.mean)
+                .map(|(yi, mi)| (transform.inverse(*yi) - transform.inverse(*mi)).powi(2))
+                .sum();
+            loo.rmse = (sq / n).sqrt();
+        }
         let z: Vec<f64> = loo.standardized.clone();
         let n = z.len() as f64;
         let mean = if z.is_empty() {
@@ -132,6 +210,10 @@ struct Diagnostics {
     sampled_box: Vec<[f64; 2]>,
     loo: LooSummary,
     log_marginal_likelihood: f64,
+    #[serde(default)]
+    transform: Transform,
+    #[serde(default)]
+    bounds: [Option<f64>; 2],
 }
 
 fn kernel_name(k: KernelKind) -> &'static str {
@@ -155,6 +237,8 @@ impl MetricFit {
             sampled_box: self.sampled_box.clone(),
             loo: self.loo.clone(),
             log_marginal_likelihood: self.gp.log_marginal_likelihood(),
+            transform: self.transform,
+            bounds: self.bounds,
         })
         .map_err(|e| {
             FitError::Internal(format!(
@@ -201,6 +285,8 @@ impl MetricFit {
             gp,
             loo: d.loo,
             sampled_box: d.sampled_box,
+            transform: d.transform,
+            bounds: d.bounds,
         })
     }
 }
@@ -222,6 +308,10 @@ pub struct FitJob {
     pub point_idx: Vec<u64>,
     /// Seed of the hyperparameter search.
     pub seed: u64,
+    /// The scale the observations are on.
+    pub transform: Transform,
+    /// Bounds of the metric.
+    pub bounds: [Option<f64>; 2],
 }
 
 /// Per-point sample of one quantity: (point index, unit-cube input, replicate values).
@@ -396,13 +486,28 @@ pub fn jobs_from_results(spec: &Spec, results: &[PointResults], seed: u64) -> Ve
     let params: Vec<String> = spec.params.iter().map(|p| p.name.clone()).collect();
     samples(spec, results)
         .into_iter()
-        .filter_map(|(metric, s)| {
+        .filter_map(|(metric, mut s)| {
             if s.len() < MIN_POINTS {
                 tracing::info!(metric = %metric, points = s.len(), "too few points with results for a surrogate (need {MIN_POINTS})");
                 return None;
             }
+            let (transform, bounds) = if metric == FAILURE_RATE {
+                (Transform::Identity, [Some(0.0), Some(1.0)])
+            } else {
+                let all: Vec<f64> = s.iter().flat_map(|(_, _, v)| v.iter().copied()).collect();
+                (spec.transform_for(&metric, &all), spec.bounds_of(&metric))
+            };
+            if !transform.is_identity() {
+                for (_, _, v) in &mut s {
+                    for y in v.iter_mut() {
+                        *y = transform.forward(*y);
+                    }
+                }
+            }
             let (obs, point_idx, n_results) = observations(&s);
             Some(FitJob {
+                transform,
+                bounds,
                 unit: spec.metric_unit(&metric).to_string(),
                 seed: fit_seed(seed, &metric, n_results),
                 metric,
@@ -444,8 +549,10 @@ pub fn run_job_with(job: &FitJob, opts: &FitOptions) -> Option<MetricFit> {
             b[1] = b[1].max(v);
         }
     }
-    let loo = LooSummary::of(&gp, job.point_idx.clone());
+    let loo = LooSummary::of(&gp, job.point_idx.clone(), &job.transform);
     Some(MetricFit {
+        transform: job.transform,
+        bounds: job.bounds,
         metric: job.metric.clone(),
         unit: job.unit.clone(),
         n_results: job.n_results,
@@ -510,7 +617,9 @@ pub fn stale_jobs(store: &Store, sweep_id: i64, spec: &Spec) -> Result<StalePlan
     let mut plan = StalePlan::default();
     for job in jobs(spec, &points, &evals, spec.seed) {
         match stored.iter().find(|f| f.metric == job.metric) {
-            Some(f) if f.n_results == job.n_results => plan.current.push(f.clone()),
+            Some(f) if f.n_results == job.n_results && same_scale(&f.transform, &job.transform) => {
+                plan.current.push(f.clone())
+            }
             Some(f) => {
                 plan.outdated.push(f.clone());
                 plan.todo.push(job);
@@ -519,6 +628,18 @@ pub fn stale_jobs(store: &Store, sweep_id: i64, spec: &Spec) -> Result<StalePlan
         }
     }
     Ok(plan)
+}
+
+/// Whether two transforms are of the same kind with the same bounds (the
+/// shift of a one-sided log follows the data and may differ).
+fn same_scale(a: &Transform, b: &Transform) -> bool {
+    match (a, b) {
+        (Transform::Identity, Transform::Identity) => true,
+        (Transform::LogAbove { lo: x, .. }, Transform::LogAbove { lo: y, .. }) => x == y,
+        (Transform::LogBelow { hi: x, .. }, Transform::LogBelow { hi: y, .. }) => x == y,
+        (Transform::Logit { lo: a, hi: b }, Transform::Logit { lo: c, hi: d }) => a == c && b == d,
+        _ => false,
+    }
 }
 
 /// The fit exactly as it will be read back from the store: through the same

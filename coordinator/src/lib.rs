@@ -9,7 +9,10 @@
 //! through [`service`] (gRPC), are decided by [`scheduler`] (pure state, no
 //! I/O), and results become durable through [`committer`] (the only SQLite
 //! writer while serving, with group commit) before they are acknowledged.
+//! Calibration to measurements (history matching, posterior sampling) is
+//! [`calibration`]; the answers read from a sweep file are [`query`].
 
+pub mod calibration;
 pub mod client;
 pub mod committer;
 pub mod engine;

@@ -17,6 +17,7 @@
 //! only); see `tessera_surrogate::acquisition`. With too little data, or if the fit
 //! fails, the planner proposes seeded uniform points and says why.
 
+use crate::calibration;
 use crate::fitter::{self, MetricFit};
 use crate::spec::{Direction, Spec, Strategy};
 use crate::status::PointResults;
@@ -48,6 +49,8 @@ pub struct Plan {
     /// The largest acquisition value of the round (expected improvement in
     /// the objective's unit for `improve`).
     pub best_acquisition: Option<f64>,
+    /// For `calibrate`: the region the wave's points were chosen in.
+    pub wave: Option<calibration::Wave>,
 }
 
 /// The planner's memory between rounds.
@@ -56,12 +59,19 @@ pub struct Planner {
     last: Option<Hyper>,
     rounds: u32,
     points_at_full_search: usize,
+    waves: u32,
 }
 
 impl Planner {
     /// A planner with no history (the first round searches afresh).
     pub fn new() -> Self {
         Planner::default()
+    }
+
+    /// Numbers the next calibration wave after `done` earlier ones (a
+    /// continued sweep).
+    pub fn continue_waves(&mut self, done: u32) {
+        self.waves = done;
     }
 
     /// Proposes `q` new points (natural units) after the points in `results`
@@ -80,6 +90,9 @@ impl Planner {
         let origin = match spec.strategy {
             Strategy::Improve => PointOrigin::Improve,
             Strategy::Explore => PointOrigin::Explore,
+            Strategy::Calibrate => {
+                return self.calibrate(spec, results, pending, q, batch, seed);
+            }
         };
         let objective = spec.objective_metric();
         let jobs = fitter::jobs_from_results(spec, results, spec.seed);
@@ -177,8 +190,8 @@ impl Planner {
             snap: Some(&snap),
         };
         let strategy = match spec.strategy {
-            Strategy::Improve => acquisition::Strategy::Improve,
             Strategy::Explore => acquisition::Strategy::Explore,
+            Strategy::Improve | Strategy::Calibrate => acquisition::Strategy::Improve,
         };
         let proposals = acquisition::propose(&loss_gp, strategy, q, &ctx, seed);
         let surrogate = format!(
@@ -217,9 +230,127 @@ impl Planner {
             points,
             objective_fit: Some(fit),
             best_acquisition,
+            wave: None,
+        }
+    }
+
+    /// A calibration wave (history matching): fit every target metric,
+    /// estimate the region not yet ruled out, and spread the batch over it,
+    /// away from the points already run or running. With no region left,
+    /// the batch goes to the least implausible candidates.
+    fn calibrate(
+        &mut self,
+        spec: &Spec,
+        results: &[PointResults],
+        pending: &[Vec<f64>],
+        q: usize,
+        batch: u32,
+        seed: u64,
+    ) -> Plan {
+        let origin = PointOrigin::Calibrate;
+        let wanted: Vec<&str> = spec.targets.iter().map(|t| t.metric.as_str()).collect();
+        let fits: Vec<MetricFit> = fitter::jobs_from_results(spec, results, spec.seed)
+            .iter()
+            .filter(|j| wanted.contains(&j.metric.as_str()))
+            .filter_map(|j| {
+                fitter::run_job_with(
+                    j,
+                    &FitOptions {
+                        seed: j.seed,
+                        restarts: 2,
+                        max_hyper_points: HOLD_ABOVE,
+                        ..FitOptions::default()
+                    },
+                )
+            })
+            .collect();
+        let matcher = match calibration::Matcher::new(spec, &fits) {
+            Ok(m) => m,
+            Err(missing) => {
+                let why = format!("no surrogate yet for {}", missing.join(", "));
+                return uniform(spec, q, origin, batch, seed, &why);
+            }
+        };
+        self.waves += 1;
+        let region = calibration::region(&matcher, CANDIDATES, seed);
+        let existing: Vec<Vec<f64>> = results
+            .iter()
+            .map(|p| spec.to_unit(&p.values))
+            .chain(pending.iter().map(|v| spec.to_unit(v)))
+            .collect();
+        let (pool, where_) = if region.kept.is_empty() {
+            // Nothing left: the tenth of the candidates closest to matching.
+            let xs = calibration::uniform_points(CANDIDATES, spec.dimension(), seed);
+            let imp = matcher.combined(&xs);
+            let mut order: Vec<usize> = (0..xs.len()).collect();
+            order.sort_by(|&a, &b| imp[a].total_cmp(&imp[b]));
+            let pool: Vec<Vec<f64>> = order[..(CANDIDATES / 10).max(q)]
+                .iter()
+                .map(|&i| xs[i].clone())
+                .collect();
+            (
+                pool,
+                "no constants left that match every target; among the least implausible",
+            )
+        } else {
+            (region.kept.clone(), "inside the region not ruled out")
+        };
+        let snap = |u: &[f64]| spec.to_unit(&spec.to_natural(u));
+        let pool: Vec<Vec<f64>> = pool.iter().map(|u| snap(u)).collect();
+        let picked = calibration::spread(&pool, &existing, q);
+        let imp = matcher.combined(&picked);
+        let n_points = results.iter().filter(|p| !p.replicates.is_empty()).count();
+        let surrogate = format!(
+            "calibration wave {}: {where_}; {:.1}% +- {:.1}% of the box not ruled out (surrogates of {} from {n_points} points)",
+            self.waves,
+            100.0 * region.fraction,
+            100.0 * region.fraction_se,
+            wanted.join(", ")
+        );
+        let mut points: Vec<NewPoint> = picked
+            .iter()
+            .zip(&imp)
+            .map(|(u, i)| NewPoint {
+                values: spec.to_natural(u),
+                origin,
+                batch,
+                proposal: Some(ProposalInfo {
+                    acquisition: *i,
+                    predicted_mean: f64::NAN,
+                    predicted_sd: f64::NAN,
+                    surrogate: surrogate.clone(),
+                }),
+            })
+            .collect();
+        if points.len() < q {
+            // Fewer distinct candidates than slots: fill with uniform points.
+            let more = uniform(
+                spec,
+                q - points.len(),
+                origin,
+                batch,
+                seed ^ 0xfeed,
+                "too few candidates",
+            );
+            points.extend(more.points);
+        }
+        Plan {
+            points,
+            objective_fit: None,
+            best_acquisition: None,
+            wave: Some(calibration::Wave {
+                wave: self.waves,
+                points: n_points,
+                fraction: region.fraction,
+                fraction_se: region.fraction_se,
+            }),
         }
     }
 }
+
+/// Uniform candidates drawn per calibration wave (our choice: a standard
+/// error of the region's share below 0.8 percentage points).
+pub const CANDIDATES: usize = 4000;
 
 fn uniform(spec: &Spec, q: usize, origin: PointOrigin, batch: u32, seed: u64, why: &str) -> Plan {
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
@@ -244,5 +375,6 @@ fn uniform(spec: &Spec, q: usize, origin: PointOrigin, batch: u32, seed: u64, wh
         points,
         objective_fit: None,
         best_acquisition: None,
+        wave: None,
     }
 }

@@ -204,6 +204,8 @@ pub struct Scheduler {
     reproducible: bool,
     /// Why no more points will be proposed before the budget, if so.
     stop_reason: Option<String>,
+    /// Calibration waves so far.
+    waves: Vec<crate::calibration::Wave>,
     /// The batch number of the next planning round (the design is batch 0).
     next_batch: u32,
     /// Where runs fail, worked out again only when the failure count changes.
@@ -239,6 +241,7 @@ impl Scheduler {
             planning: false,
             reproducible: false,
             stop_reason: None,
+            waves: Vec::new(),
             next_batch: 1,
             failure_region: std::sync::Mutex::new((0, None)),
         };
@@ -634,6 +637,16 @@ impl Scheduler {
                 || self.stop_reason.is_some())
     }
 
+    /// Sets the calibration waves recorded so far.
+    pub fn set_waves(&mut self, waves: Vec<crate::calibration::Wave>) {
+        self.waves = waves;
+    }
+
+    /// Records a calibration wave.
+    pub fn push_wave(&mut self, wave: crate::calibration::Wave) {
+        self.waves.push(wave);
+    }
+
     /// Sets whether each batch waits for every result before it.
     pub fn set_reproducible(&mut self, on: bool) {
         self.reproducible = on;
@@ -804,6 +817,7 @@ impl Scheduler {
             failure_region: self.failure_region(),
             stop_reason: self.stop_reason.clone(),
             reproducible: self.reproducible,
+            waves: self.waves.clone(),
         }
     }
 }
@@ -830,6 +844,7 @@ pub fn status_from_records(
         evaluations,
     );
     s.set_reproducible(notes.reproducible);
+    s.set_waves(notes.waves.clone());
     if let Some(r) = &notes.stop_reason {
         s.stop(r.clone());
     }
@@ -844,6 +859,8 @@ pub struct FileNotes {
     pub reproducible: bool,
     /// Why proposing stopped before the budget.
     pub stop_reason: Option<String>,
+    /// Calibration waves so far (note `calibration_waves`, a JSON list).
+    pub waves: Vec<crate::calibration::Wave>,
 }
 
 impl FileNotes {
@@ -852,6 +869,14 @@ impl FileNotes {
         Ok(FileNotes {
             reproducible: store.note("reproducible")?.as_deref() == Some("true"),
             stop_reason: store.note("stop_reason")?,
+            waves: store
+                .note(WAVES_NOTE)?
+                .and_then(|t| serde_json::from_str(&t).ok())
+                .unwrap_or_default(),
         })
     }
 }
+
+/// The note holding the calibration waves (a JSON list of
+/// [`crate::calibration::Wave`]).
+pub const WAVES_NOTE: &str = "calibration_waves";

@@ -82,6 +82,8 @@ pub struct SweepStatus {
     pub stop_reason: Option<String>,
     /// Each batch of proposals waits for every result before it.
     pub reproducible: bool,
+    /// Calibration waves so far, oldest first.
+    pub waves: Vec<crate::calibration::Wave>,
 }
 
 /// Per-point results, for the best point and the planner.

@@ -109,6 +109,16 @@ pub fn status_reply(s: SweepStatus) -> pb::StatusReply {
         failure_region: s.failure_region.unwrap_or_default(),
         stop_reason: s.stop_reason.unwrap_or_default(),
         reproducible: s.reproducible,
+        waves: s
+            .waves
+            .into_iter()
+            .map(|w| pb::CalibrationWave {
+                wave: w.wave,
+                points: w.points as u64,
+                fraction: w.fraction,
+                fraction_se: w.fraction_se,
+            })
+            .collect(),
     }
 }
 
@@ -155,6 +165,16 @@ pub fn status_from_reply(r: pb::StatusReply) -> SweepStatus {
         failure_region: Some(r.failure_region).filter(|s| !s.is_empty()),
         stop_reason: Some(r.stop_reason).filter(|s| !s.is_empty()),
         reproducible: r.reproducible,
+        waves: r
+            .waves
+            .into_iter()
+            .map(|w| crate::calibration::Wave {
+                wave: w.wave,
+                points: w.points as usize,
+                fraction: w.fraction,
+                fraction_se: w.fraction_se,
+            })
+            .collect(),
     }
 }
 

@@ -60,6 +60,10 @@ pub struct MetricInfo {
     pub lo: f64,
     /// Largest possible value (without added noise).
     pub hi: f64,
+    /// Hard bounds that no run can cross, noise included (`None`: open on
+    /// that side): surrogates of bounded metrics are fitted on a scale
+    /// where predictions stay inside them.
+    pub bounds: [Option<f64>; 2],
     /// What the metric measures, in a sentence.
     pub description: &'static str,
 }

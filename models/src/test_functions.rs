@@ -72,6 +72,8 @@ fn value_metric(lo: f64, hi: f64) -> Vec<MetricInfo> {
         unit: "",
         lo,
         hi,
+        // Noise (noise_sd) can carry a value anywhere.
+        bounds: [None, None],
         description: "function value (range without noise)",
     }]
 }

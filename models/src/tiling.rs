@@ -79,11 +79,13 @@ pub fn info() -> ModelInfo {
         integer: false,
         description,
     };
-    let m = |name, unit, lo, hi, description| MetricInfo {
+    // Every metric is non-negative; fractions are also at most 1.
+    let m = |name, unit, lo, hi: f64, description| MetricInfo {
         name,
         unit,
         lo,
         hi,
+        bounds: [Some(0.0), (hi == 1.0).then_some(1.0)],
         description,
     };
     ModelInfo {

@@ -62,3 +62,17 @@ pub fn init_logging(level: &str, format: LogFormat) -> anyhow::Result<()> {
     }
     Ok(())
 }
+
+/// A name made safe for a file name: letters, digits, `-`, `_` and `.`
+/// kept, anything else (spaces, slashes) becomes `-`.
+pub fn file_word(name: &str) -> String {
+    name.chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || matches!(c, '-' | '_' | '.') {
+                c
+            } else {
+                '-'
+            }
+        })
+        .collect()
+}

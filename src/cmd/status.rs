@@ -112,6 +112,16 @@ pub fn print_human(st: &SweepStatus, spec: Option<&Spec>) {
         }
         None => println!("best       no finished run yet"),
     }
+    for (k, w) in st.waves.iter().enumerate() {
+        println!(
+            "{}wave {}: {:.1}% +- {:.1}% of the box not ruled out by the targets (fitted to {} points)",
+            if k == 0 { "region     " } else { "           " },
+            w.wave,
+            100.0 * w.fraction,
+            100.0 * w.fraction_se,
+            w.points
+        );
+    }
     if !st.workers.is_empty() {
         println!();
         println!(

@@ -191,8 +191,11 @@ pub fn run(args: TrendArgs) -> anyhow::Result<ExitCode> {
             .file_stem()
             .map(|s| s.to_string_lossy().to_string())
             .unwrap_or_else(|| "sweep".into());
-        args.db
-            .with_file_name(format!("{stem}-{}-vs-{}.svg", t.metric, t.param))
+        args.db.with_file_name(format!(
+            "{stem}-{}-vs-{}.svg",
+            super::file_word(&t.metric),
+            t.param
+        ))
     });
     plot(&t, &out).with_context(|| format!("cannot write the plot {}", out.display()))?;
     if args.json {

@@ -8,7 +8,10 @@
 //!
 //! Modules: [`design`] (maximin Latin hypercubes and design measures),
 //! [`gp`] (Gaussian-process regression: fit, predict, leave-one-out),
-//! [`acquisition`] (expected improvement and the choice of new points).
+//! [`acquisition`] (expected improvement and the choice of new points),
+//! [`transform`] (fitting bounded metrics on an unbounded scale),
+//! [`mcmc`] (posterior sampling and convergence diagnostics), [`stats`]
+//! (quantiles, ranks, correlation, normal quantiles, Kolmogorov-Smirnov).
 //!
 //! ```
 //! use tessera_surrogate::{acquisition, design, gp};
@@ -28,3 +31,6 @@
 pub mod acquisition;
 pub mod design;
 pub mod gp;
+pub mod mcmc;
+pub mod stats;
+pub mod transform;

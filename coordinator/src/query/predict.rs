@@ -31,9 +31,10 @@ pub struct MetricPrediction {
     /// Standard deviation of that prediction (uncertainty of the surrogate,
     /// not the spread of single runs).
     pub sd: f64,
-    /// mean - 1.96 sd.
+    /// Lower end of the 95% interval (mean - 1.96 sd, or the 2.5% quantile
+    /// mapped back from the fitted scale of a bounded metric).
     pub lower95: f64,
-    /// mean + 1.96 sd.
+    /// Upper end of the 95% interval.
     pub upper95: f64,
     /// sd / prior sd: near 1 means the surrogate knows little here.
     pub sd_ratio: f64,
@@ -198,6 +199,8 @@ pub fn predict(
     }
     let per_fit: Vec<Vec<tessera_surrogate::gp::Prediction>> =
         fits.iter().map(|f| f.gp.predict(&unit_points)).collect();
+    // sd / prior sd is judged on the fitted scale; what is shown is mapped
+    // back to the metric's own scale (inside its bounds).
     let mut out = Vec::with_capacity(points.len());
     for (k, (point, u)) in points.iter().zip(&unit_points).enumerate() {
         let mut metrics = Vec::with_capacity(fits.len());
@@ -211,13 +214,14 @@ pub fn predict(
             let pr = preds[k];
             let prior = f.gp.prior_sd();
             let sd_ratio = if prior > 0.0 { pr.sd / prior } else { f64::NAN };
+            let nat = f.natural(pr);
             metrics.push(MetricPrediction {
                 metric: f.metric.clone(),
                 unit: f.unit.clone(),
-                mean: pr.mean,
-                sd: pr.sd,
-                lower95: pr.mean - Z95 * pr.sd,
-                upper95: pr.mean + Z95 * pr.sd,
+                mean: nat.mean,
+                sd: nat.sd,
+                lower95: nat.lower95,
+                upper95: nat.upper95,
                 sd_ratio,
             });
             for ((p, &ui), b) in spec.params.iter().zip(u).zip(&f.sampled_box) {

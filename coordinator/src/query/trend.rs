@@ -140,8 +140,14 @@ pub fn trend(
     let mut per_point: BTreeMap<i64, Vec<f64>> = BTreeMap::new();
     for e in evals {
         if e.status == EvalStatus::Done {
-            if let Some(v) = e.metrics.get(metric) {
-                per_point.entry(e.point_id).or_default().push(*v);
+            // The calibration discrepancy is computed from each run's metrics.
+            let v = if spec.objective.is_none() && metric == spec.objective_label() {
+                spec.loss(&e.metrics)
+            } else {
+                e.metrics.get(metric).copied()
+            };
+            if let Some(v) = v.filter(|v| v.is_finite()) {
+                per_point.entry(e.point_id).or_default().push(v);
             }
         }
     }

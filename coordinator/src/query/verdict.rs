@@ -162,11 +162,20 @@ fn judge(f: &MetricFit) -> FitVerdict {
     let (verdict, reason) = if noise_share > NOISE_SHARE && !failed.is_empty() {
         (
             Verdict::BarelyChanges,
-            format!(
-                "this metric barely changes over the box: the point means differ by sd {} while run-to-run noise alone gives sd {}; it hardly depends on the swept constants, and more points will not change that",
-                with_unit(short(spread.sqrt()), &f.unit),
-                with_unit(short(noise.sqrt()), &f.unit)
-            ),
+            if f.transform.is_identity() {
+                format!(
+                    "this metric barely changes over the box: the point means differ by sd {} while run-to-run noise alone gives sd {}; it hardly depends on the swept constants, and more points will not change that",
+                    with_unit(short(spread.sqrt()), &f.unit),
+                    with_unit(short(noise.sqrt()), &f.unit)
+                )
+            } else {
+                format!(
+                    "this metric barely changes over the box: on its fitted scale ({}) the point means differ by sd {} while run-to-run noise alone gives sd {}; it hardly depends on the swept constants, and more points will not change that",
+                    f.transform.describe(),
+                    short(spread.sqrt()),
+                    short(noise.sqrt())
+                )
+            },
         )
     } else if failed.is_empty() {
         (

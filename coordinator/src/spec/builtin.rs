@@ -209,6 +209,23 @@ pub(super) fn apply(r: &mut Reader<'_>, root: &DeTable<'_>, spec: &mut Spec, mod
                 .entry(m.name.to_string())
                 .or_insert_with(|| m.unit.to_string());
         }
+        // The model's bounds, unless the sweep file gives its own.
+        let [lo, hi] = m.bounds;
+        if lo.is_some() || hi.is_some() {
+            let b = spec
+                .metric_bounds
+                .entry(m.name.to_string())
+                .or_insert(super::MetricBounds {
+                    lo,
+                    hi,
+                    fit: super::FitScale::Auto,
+                });
+            if b.lo.is_none() && b.hi.is_none() {
+                // `transform` given without bounds: the model's bounds apply.
+                b.lo = lo;
+                b.hi = hi;
+            }
+        }
     }
     for limit in &model.limits {
         if let Some(message) = crossed(limit, model, &spec.params, &spec.model.fixed) {

@@ -18,6 +18,7 @@ mod unit_cube;
 
 use std::collections::BTreeMap;
 use std::time::Duration;
+use tessera_surrogate::transform::Transform;
 
 pub use error::{SpecError, SpecErrors};
 
@@ -58,6 +59,46 @@ pub struct Spec {
     pub targets: Vec<Target>,
     /// Units of metrics (from `[metrics.NAME]` and `[[target]]` `unit`); a metric not listed has no unit.
     pub metric_units: BTreeMap<String, String>,
+    /// Bounds of metrics and the scale they are fitted on (from
+    /// `[metrics.NAME]`, or declared by a built-in model); a metric not
+    /// listed is unbounded and fitted as it is.
+    pub metric_bounds: BTreeMap<String, MetricBounds>,
+}
+
+/// What is known of a metric's possible values.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct MetricBounds {
+    /// Smallest possible value (`None`: unbounded below).
+    pub lo: Option<f64>,
+    /// Largest possible value (`None`: unbounded above).
+    pub hi: Option<f64>,
+    /// The scale the metric's surrogate is fitted on.
+    pub fit: FitScale,
+}
+
+/// The scale a metric's surrogate is fitted on (`transform` in `[metrics.NAME]`).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum FitScale {
+    /// Chosen by the bounds: logit for two, log for one, as it is for none.
+    Auto,
+    /// As it is (predictions are still clamped into the bounds).
+    Natural,
+    /// The logarithm of the distance to the one finite bound (0 if none is given).
+    Log,
+    /// The logit between the two bounds.
+    Logit,
+}
+
+impl FitScale {
+    /// The word used in the sweep file.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            FitScale::Auto => "auto",
+            FitScale::Natural => "none",
+            FitScale::Log => "log",
+            FitScale::Logit => "logit",
+        }
+    }
 }
 
 /// When to stop before the budget is spent.
@@ -77,6 +118,9 @@ pub enum Strategy {
     Improve,
     /// Largest predictive standard deviation: map trends over the whole range.
     Explore,
+    /// History matching: space-filling points inside the region of
+    /// constants not yet ruled out by the targets, refitting between waves.
+    Calibrate,
 }
 
 impl Strategy {
@@ -85,6 +129,7 @@ impl Strategy {
         match self {
             Strategy::Improve => "improve",
             Strategy::Explore => "explore",
+            Strategy::Calibrate => "calibrate",
         }
     }
 }
@@ -260,8 +305,22 @@ pub struct Target {
     pub metric: String,
     /// The observed value.
     pub value: f64,
-    /// Standard deviation of the observation (> 0).
+    /// Standard deviation of the observation (> 0): the measurement's own uncertainty.
     pub sd: f64,
+    /// Standard deviation of the model discrepancy (>= 0): how far the
+    /// model's average may differ from the real tissue even at the best
+    /// constants.
+    pub discrepancy_sd: f64,
+    /// Weight of the target in the posterior and the discrepancy score (>= 0; default 1).
+    pub weight: f64,
+}
+
+impl Target {
+    /// The variance of the observation and the model discrepancy together:
+    /// `sd^2 + discrepancy_sd^2` (the surrogate's variance is added where it is known).
+    pub fn variance(&self) -> f64 {
+        self.sd * self.sd + self.discrepancy_sd * self.discrepancy_sd
+    }
 }
 
 /// Parses and validates a sweep file. `file` is only used in error messages.
@@ -481,5 +540,39 @@ impl Spec {
     /// Unit of a metric, or `""` if it has none.
     pub fn metric_unit(&self, metric: &str) -> &str {
         self.metric_units.get(metric).map_or("", String::as_str)
+    }
+
+    /// The bounds of a metric: `[lo, hi]`, `None` where it is unbounded.
+    /// The calibration discrepancy is bounded below by 0.
+    pub fn bounds_of(&self, metric: &str) -> [Option<f64>; 2] {
+        if self.objective.is_none() && metric == self.objective_label() {
+            return [Some(0.0), None];
+        }
+        self.metric_bounds
+            .get(metric)
+            .map_or([None, None], |b| [b.lo, b.hi])
+    }
+
+    /// The transform a metric's surrogate is fitted with, given the values
+    /// observed so far (see `tessera_surrogate::transform`).
+    pub fn transform_for(&self, metric: &str, observed: &[f64]) -> Transform {
+        let [lo, hi] = self.bounds_of(metric);
+        let fit = if self.objective.is_none() && metric == self.objective_label() {
+            FitScale::Auto
+        } else {
+            self.metric_bounds
+                .get(metric)
+                .map_or(FitScale::Auto, |b| b.fit)
+        };
+        match fit {
+            FitScale::Auto => Transform::for_bounds(lo, hi, observed),
+            FitScale::Natural => Transform::Identity,
+            FitScale::Log => match (lo, hi) {
+                (Some(_), _) => Transform::for_bounds(lo, None, observed),
+                (None, Some(_)) => Transform::for_bounds(None, hi, observed),
+                (None, None) => Transform::for_bounds(Some(0.0), None, observed),
+            },
+            FitScale::Logit => Transform::for_bounds(lo, hi, observed),
+        }
     }
 }

@@ -18,8 +18,8 @@ use toml::Spanned;
 use super::error::LineIndex;
 use super::toml_access::{closest, join, num, table_start, type_name, Reader, Value};
 use super::{
-    Direction, ModelSpec, Objective, ParamSpec, Scale, Spec, SpecError, SpecErrors, StopRule,
-    Strategy, Target,
+    Direction, FitScale, MetricBounds, ModelSpec, Objective, ParamSpec, Scale, Spec, SpecError,
+    SpecErrors, StopRule, Strategy, Target,
 };
 
 const TOP_KEYS: &[&str] = &[
@@ -44,8 +44,8 @@ const STOP_KEYS: &[&str] = &["expected_improvement_below", "for_rounds"];
 const MODEL_KEYS: &[&str] = &["name", "timeout", "command", "fixed"];
 const PARAM_KEYS: &[&str] = &["range", "scale", "integer", "unit", "description"];
 const OBJECTIVE_KEYS: &[&str] = &["minimize", "maximize"];
-const TARGET_KEYS: &[&str] = &["metric", "value", "sd", "unit"];
-const METRIC_KEYS: &[&str] = &["unit", "description"];
+const TARGET_KEYS: &[&str] = &["metric", "value", "sd", "discrepancy_sd", "weight", "unit"];
+const METRIC_KEYS: &[&str] = &["unit", "description", "bounds", "transform"];
 
 /// Default `retries`.
 const DEFAULT_RETRIES: u32 = 2;
@@ -198,9 +198,10 @@ impl Reader<'_> {
                 .map(|b| Some(b as u32)),
             None => Some(None),
         };
+        let strategy_at = Self::lookup(root, "strategy").map(|(_, v)| v.span().start);
         let strategy = match Self::lookup(root, "strategy") {
-            Some((_, v)) => self.strategy(v),
-            None => Some(Strategy::Improve),
+            Some((_, v)) => self.strategy(v).map(Some),
+            None => Some(None),
         };
         let reproducible = match Self::lookup(root, "reproducible") {
             Some((_, v)) => self.boolean(v, "reproducible").map(Some),
@@ -249,8 +250,9 @@ impl Reader<'_> {
             None => Some(None),
         };
         let mut metric_units = BTreeMap::new();
+        let mut metric_bounds = BTreeMap::new();
         let metrics_ok = match Self::lookup(root, "metrics") {
-            Some((_, v)) => self.metrics(v, &mut metric_units),
+            Some((_, v)) => self.metrics(v, &mut metric_units, &mut metric_bounds),
             None => true,
         };
         let targets = match Self::lookup(root, "target") {
@@ -287,6 +289,22 @@ impl Reader<'_> {
         if !metrics_ok {
             return None;
         }
+        let has_targets = targets.as_ref().is_some_and(|t| !t.is_empty());
+        let has_objective = matches!(objective, Some(Some(_)));
+        let strategy = match strategy? {
+            Some(Strategy::Calibrate) if !has_targets => {
+                self.error(
+                    strategy_at.unwrap_or(0),
+                    "strategy",
+                    "\"calibrate\" needs measurements to match: add [[target]] tables (metric, value, sd)",
+                );
+                return None;
+            }
+            Some(s) => s,
+            // Measurements and nothing to optimise: find the constants that match them.
+            None if has_targets && !has_objective => Strategy::Calibrate,
+            None => Strategy::Improve,
+        };
         Some(Spec {
             name: name?,
             description: description?,
@@ -295,7 +313,7 @@ impl Reader<'_> {
             initial,
             replicates: replicates?,
             batch: batch?,
-            strategy: strategy?,
+            strategy,
             retries: retries?,
             reproducible: reproducible?,
             stop: stop?,
@@ -304,6 +322,7 @@ impl Reader<'_> {
             objective: objective?,
             targets: targets?,
             metric_units,
+            metric_bounds,
         })
     }
 
@@ -366,15 +385,16 @@ impl Reader<'_> {
         match s.as_str() {
             "improve" => Some(Strategy::Improve),
             "explore" => Some(Strategy::Explore),
+            "calibrate" => Some(Strategy::Calibrate),
             other => {
-                let hint = closest(other, &["improve", "explore"])
+                let hint = closest(other, &["improve", "explore", "calibrate"])
                     .map(|c| format!("did you mean \"{c}\"? "))
                     .unwrap_or_default();
                 self.error(
                     v.span().start,
                     "strategy",
                     format!(
-                        "unknown strategy \"{other}\"; {hint}valid: \"improve\" (search for the best objective by expected improvement) or \"explore\" (map trends where the surrogate is least certain)"
+                        "unknown strategy \"{other}\"; {hint}valid: \"improve\" (search for the best objective by expected improvement), \"explore\" (map trends where the surrogate is least certain) or \"calibrate\" (narrow down the constants that match the [[target]] measurements)"
                     ),
                 );
                 None
@@ -745,7 +765,39 @@ impl Reader<'_> {
         Some(s)
     }
 
-    fn metrics(&mut self, v: &Value<'_>, units: &mut BTreeMap<String, String>) -> bool {
+    /// An optional number `>= 0` in table `t` (at `path`), `default` if absent.
+    fn non_negative(
+        &mut self,
+        t: &DeTable<'_>,
+        path: &str,
+        key: &str,
+        default: f64,
+        example: &str,
+    ) -> Option<f64> {
+        let Some((_, v)) = Self::lookup(t, key) else {
+            return Some(default);
+        };
+        let full = join(path, key);
+        match self.number(v, &full) {
+            Some(x) if x >= 0.0 => Some(x),
+            Some(x) => {
+                self.error(
+                    v.span().start,
+                    &full,
+                    format!("must be zero or above ({example}); found {}", num(x)),
+                );
+                None
+            }
+            None => None,
+        }
+    }
+
+    fn metrics(
+        &mut self,
+        v: &Value<'_>,
+        units: &mut BTreeMap<String, String>,
+        bounds: &mut BTreeMap<String, MetricBounds>,
+    ) -> bool {
         let Some(t) = self.table(v, "metrics", "[metrics.NAME]") else {
             return false;
         };
@@ -779,8 +831,143 @@ impl Reader<'_> {
                     None => ok = false,
                 }
             }
+            let given = match Self::lookup(mt, "bounds") {
+                Some((_, bv)) => match self.bounds(bv, &join(&path, "bounds")) {
+                    Some(b) => Some(b),
+                    None => {
+                        ok = false;
+                        continue;
+                    }
+                },
+                None => None,
+            };
+            let fit = match Self::lookup(mt, "transform") {
+                Some((_, tv)) => match self.fit_scale(tv, &join(&path, "transform"), given) {
+                    Some(f) => f,
+                    None => {
+                        ok = false;
+                        continue;
+                    }
+                },
+                None => FitScale::Auto,
+            };
+            if given.is_some() || fit != FitScale::Auto {
+                let [lo, hi] = given.unwrap_or([None, None]);
+                bounds.insert(name.to_string(), MetricBounds { lo, hi, fit });
+            }
         }
         ok
+    }
+
+    /// `bounds = [lo, hi]`, with `-inf` / `inf` for an open side.
+    fn bounds(&mut self, v: &Value<'_>, key: &str) -> Option<[Option<f64>; 2]> {
+        let at = v.span().start;
+        let example =
+            "e.g. bounds = [0, 1] for a fraction, bounds = [0, inf] for a count or a volume";
+        let items = match v.get_ref() {
+            DeValue::Array(items) if items.len() == 2 => items,
+            other => {
+                let found = match other {
+                    DeValue::Array(items) => format!("a list of {}", items.len()),
+                    o => type_name(o).to_string(),
+                };
+                self.error(
+                    at,
+                    key,
+                    format!("expected two numbers [low, high], {example}; found {found}"),
+                );
+                return None;
+            }
+        };
+        let mut side = |item: &Value<'_>, open: f64| -> Option<Option<f64>> {
+            match super::toml_access::parse_float(item.get_ref()) {
+                Some(x) if x.is_finite() => Some(Some(x)),
+                Some(x) if x == open => Some(None),
+                Some(x) => {
+                    self.error(
+                        item.span().start,
+                        key,
+                        format!("{} cannot be a bound here; {example}", num(x)),
+                    );
+                    None
+                }
+                None => {
+                    let found = type_name(item.get_ref());
+                    self.error(
+                        item.span().start,
+                        key,
+                        format!("expected a number; {example}; found {found}"),
+                    );
+                    None
+                }
+            }
+        };
+        let lo = side(&items[0], f64::NEG_INFINITY);
+        let hi = side(&items[1], f64::INFINITY);
+        let (lo, hi) = (lo?, hi?);
+        if let (Some(l), Some(h)) = (lo, hi) {
+            if l >= h {
+                self.error(
+                    at,
+                    key,
+                    format!(
+                        "low bound {} is not below high bound {}; {example}",
+                        num(l),
+                        num(h)
+                    ),
+                );
+                return None;
+            }
+        }
+        Some([lo, hi])
+    }
+
+    /// `transform = "auto" | "none" | "log" | "logit"`, checked against the bounds.
+    fn fit_scale(
+        &mut self,
+        v: &Value<'_>,
+        key: &str,
+        bounds: Option<[Option<f64>; 2]>,
+    ) -> Option<FitScale> {
+        let s = self.string(v, key, "\"logit\"")?;
+        let [lo, hi] = bounds.unwrap_or([None, None]);
+        let fit = match s.as_str() {
+            "auto" => FitScale::Auto,
+            "none" => FitScale::Natural,
+            "log" => FitScale::Log,
+            "logit" => FitScale::Logit,
+            other => {
+                let hint = closest(other, &["auto", "none", "log", "logit"])
+                    .map(|c| format!("did you mean \"{c}\"? "))
+                    .unwrap_or_default();
+                self.error(
+                    v.span().start,
+                    key,
+                    format!("unknown transform \"{other}\"; {hint}valid: \"auto\" (chosen by bounds), \"none\", \"log\" (one bound, 0 if none is given) or \"logit\" (two bounds)"),
+                );
+                return None;
+            }
+        };
+        match (fit, lo, hi) {
+            (FitScale::Logit, Some(_), Some(_)) => Some(fit),
+            (FitScale::Logit, _, _) => {
+                self.error(
+                    v.span().start,
+                    key,
+                    "\"logit\" needs two finite bounds: add bounds = [low, high] (e.g. [0, 1] for a fraction)",
+                );
+                None
+            }
+            (FitScale::Log, Some(_), Some(_)) => {
+                self.error(
+                    v.span().start,
+                    key,
+                    "\"log\" is for a metric bounded on one side; with two finite bounds use \"logit\" or \"auto\"",
+                );
+                None
+            }
+            _ => Some(fit),
+        }
     }
 
     fn targets(
@@ -895,8 +1082,23 @@ impl Reader<'_> {
                     _ => {}
                 }
             }
-            match (metric, value, sd) {
-                (Some(metric), Some(value), Some(sd)) => out.push(Target { metric, value, sd }),
+            let discrepancy_sd = self.non_negative(
+                t,
+                &path,
+                "discrepancy_sd",
+                0.0,
+                "the sd of the model discrepancy, e.g. discrepancy_sd = 0.02",
+            );
+            let weight = self.non_negative(t, &path, "weight", 1.0, "a weight, e.g. weight = 0.5");
+            match (metric, value, sd, discrepancy_sd, weight) {
+                (Some(metric), Some(value), Some(sd), Some(discrepancy_sd), Some(weight)) => out
+                    .push(Target {
+                        metric,
+                        value,
+                        sd,
+                        discrepancy_sd,
+                        weight,
+                    }),
                 _ => ok = false,
             }
         }

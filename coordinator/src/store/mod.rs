@@ -212,6 +212,8 @@ pub enum PointOrigin {
     Improve,
     /// Proposed where the surrogate is least certain.
     Explore,
+    /// Proposed inside the region the targets have not ruled out.
+    Calibrate,
 }
 
 impl PointOrigin {
@@ -221,6 +223,7 @@ impl PointOrigin {
             PointOrigin::Design => "design",
             PointOrigin::Improve => "improve",
             PointOrigin::Explore => "explore",
+            PointOrigin::Calibrate => "calibrate",
         }
     }
 
@@ -229,6 +232,7 @@ impl PointOrigin {
             "design" => Ok(PointOrigin::Design),
             "improve" => Ok(PointOrigin::Improve),
             "explore" => Ok(PointOrigin::Explore),
+            "calibrate" => Ok(PointOrigin::Calibrate),
             other => Err(StoreError::Damaged(format!(
                 "unknown point origin {other:?}"
             ))),
