@@ -64,6 +64,8 @@ enum Command {
     CheckFit(cmd::check_fit::CheckFitArgs),
     /// Plot a metric against a parameter, from the surrogate, with its uncertainty.
     Trend(cmd::trend::TrendArgs),
+    /// Find the constants that match the measured targets, and what the targets pin down.
+    Calibrate(cmd::calibrate::CalibrateArgs),
     /// Write every evaluation in a sweep database as CSV or JSON lines.
     Export(cmd::export::ExportArgs),
     /// Run one external simulator under supervision (used by workers).
@@ -95,6 +97,7 @@ fn main() -> ExitCode {
         Command::Predict(a) => cmd::predict::run(a),
         Command::CheckFit(a) => cmd::check_fit::run(a),
         Command::Trend(a) => cmd::trend::run(a),
+        Command::Calibrate(a) => cmd::calibrate::run(a),
         Command::Export(a) => cmd::export::run(a),
         Command::Guard(a) => cmd::guard::run(a),
     };

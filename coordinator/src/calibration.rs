@@ -184,20 +184,6 @@ pub fn combine(per_target: &[f64], targets: &[Target]) -> f64 {
     }
 }
 
-/// One calibration wave as recorded in the sweep file's notes and shown
-/// by `tessera status`: the region when the wave's points were chosen.
-#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
-pub struct Wave {
-    /// 1 for the first wave after the initial design.
-    pub wave: u32,
-    /// Points with results that the surrogates were fitted to.
-    pub points: usize,
-    /// The non-implausible share of the box.
-    pub fraction: f64,
-    /// Its Monte Carlo standard error.
-    pub fraction_se: f64,
-}
-
 /// Uniform points of the unit cube (seeded).
 pub fn uniform_points(n: usize, d: usize, seed: u64) -> Vec<Vec<f64>> {
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
@@ -323,10 +309,12 @@ pub struct Posterior {
 /// Options of [`posterior`].
 #[derive(Clone, Debug)]
 pub struct PosteriorOptions {
-    /// Steps per walker, burn-in included.
+    /// Steps per walker of the first run, burn-in included.
     pub steps: usize,
-    /// Steps dropped at the start.
-    pub burn: usize,
+    /// Most steps per walker: while the diagnostics are poor (R-hat above
+    /// [`RHAT_TARGET`] or bulk ESS below [`ESS_TARGET`]) the run is doubled
+    /// up to this length.
+    pub max_steps: usize,
     /// Seed of the starting points and the moves.
     pub seed: u64,
 }
@@ -335,11 +323,18 @@ impl Default for PosteriorOptions {
     fn default() -> Self {
         PosteriorOptions {
             steps: 2500,
-            burn: 1000,
+            max_steps: 20_000,
             seed: 1,
         }
     }
 }
+
+/// The R-hat below which the chains count as mixed (Vehtari et al. 2021, sec. 4.4).
+pub const RHAT_TARGET: f64 = 1.01;
+/// The bulk ESS above which quantiles are stable enough (Vehtari et al. 2021, sec. 4.4).
+pub const ESS_TARGET: f64 = 400.0;
+/// Share of each run dropped as burn-in (our choice).
+pub const BURN_SHARE: f64 = 0.4;
 
 /// Samples the posterior with the affine-invariant ensemble sampler
 /// (Goodman & Weare 2010), its walkers started at points of `region` (the
@@ -347,8 +342,8 @@ impl Default for PosteriorOptions {
 /// when none is left).
 pub fn posterior(m: &Matcher, region: &Region, opts: &PosteriorOptions) -> Posterior {
     let d = m.dim();
-    // Walkers: at least 16 and four per parameter, an even number (our choice).
-    let walkers = (4 * d).max(16).next_multiple_of(2);
+    // Walkers: at least 32 and four per parameter, an even number (our choice).
+    let walkers = (4 * d).max(32).next_multiple_of(2);
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(opts.seed ^ 0x5eed_ca1b);
     let start: Vec<Vec<f64>> = (0..walkers)
         .map(|_| {
@@ -365,22 +360,45 @@ pub fn posterior(m: &Matcher, region: &Region, opts: &PosteriorOptions) -> Poste
         })
         .collect();
     let logp = |xs: &[Vec<f64>]| m.log_posterior(xs);
-    let chains = mcmc::ensemble(
-        &logp,
-        start,
-        &EnsembleOptions {
-            steps: opts.steps,
-            seed: opts.seed,
-            ..EnsembleOptions::default()
-        },
-    )
-    .after(opts.burn);
-    let rhat = (0..d)
-        .map(|k| mcmc::split_rhat(&chains.coordinate(k)))
-        .collect();
-    let ess = (0..d)
-        .map(|k| mcmc::ess_bulk(&chains.coordinate(k)))
-        .collect();
+    let run = |start: Vec<Vec<f64>>, steps: usize, seed: u64| {
+        mcmc::ensemble(
+            &logp,
+            start,
+            &EnsembleOptions {
+                steps,
+                seed,
+                ..EnsembleOptions::default()
+            },
+        )
+    };
+    let mut all = run(start, opts.steps.max(10), opts.seed);
+    let mut extension = 0u64;
+    let (chains, rhat, ess) = loop {
+        let total = all.positions.len();
+        let chains = all.after((total as f64 * BURN_SHARE) as usize);
+        let rhat: Vec<f64> = (0..d)
+            .map(|k| mcmc::split_rhat(&chains.coordinate(k)))
+            .collect();
+        let ess: Vec<f64> = (0..d)
+            .map(|k| mcmc::ess_bulk(&chains.coordinate(k)))
+            .collect();
+        let good = rhat.iter().all(|r| *r <= RHAT_TARGET) && ess.iter().all(|e| *e >= ESS_TARGET);
+        if good || total >= opts.max_steps {
+            break (chains, rhat, ess);
+        }
+        // Twice as long: continue every walker from where it stopped.
+        extension += 1;
+        let last = all.positions.last().cloned().unwrap_or_default();
+        let more = run(
+            last,
+            total.min(opts.max_steps - total),
+            opts.seed.wrapping_add(extension.wrapping_mul(0x9E37_79B9)),
+        );
+        let (n0, n1) = (total as f64, more.positions.len() as f64);
+        all.acceptance = (all.acceptance * n0 + more.acceptance * n1) / (n0 + n1);
+        all.positions.extend(more.positions);
+        all.log_density.extend(more.log_density);
+    };
     Posterior {
         steps: chains.positions.len(),
         samples: chains.flat(),

@@ -50,7 +50,7 @@ pub struct Plan {
     /// the objective's unit for `improve`).
     pub best_acquisition: Option<f64>,
     /// For `calibrate`: the region the wave's points were chosen in.
-    pub wave: Option<calibration::Wave>,
+    pub wave: Option<crate::status::Wave>,
 }
 
 /// The planner's memory between rounds.
@@ -338,7 +338,7 @@ impl Planner {
             points,
             objective_fit: None,
             best_acquisition: None,
-            wave: Some(calibration::Wave {
+            wave: Some(crate::status::Wave {
                 wave: self.waves,
                 points: n_points,
                 fraction: region.fraction,

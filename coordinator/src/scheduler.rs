@@ -205,7 +205,7 @@ pub struct Scheduler {
     /// Why no more points will be proposed before the budget, if so.
     stop_reason: Option<String>,
     /// Calibration waves so far.
-    waves: Vec<crate::calibration::Wave>,
+    waves: Vec<crate::status::Wave>,
     /// The batch number of the next planning round (the design is batch 0).
     next_batch: u32,
     /// Where runs fail, worked out again only when the failure count changes.
@@ -638,12 +638,12 @@ impl Scheduler {
     }
 
     /// Sets the calibration waves recorded so far.
-    pub fn set_waves(&mut self, waves: Vec<crate::calibration::Wave>) {
+    pub fn set_waves(&mut self, waves: Vec<crate::status::Wave>) {
         self.waves = waves;
     }
 
     /// Records a calibration wave.
-    pub fn push_wave(&mut self, wave: crate::calibration::Wave) {
+    pub fn push_wave(&mut self, wave: crate::status::Wave) {
         self.waves.push(wave);
     }
 
@@ -860,7 +860,7 @@ pub struct FileNotes {
     /// Why proposing stopped before the budget.
     pub stop_reason: Option<String>,
     /// Calibration waves so far (note `calibration_waves`, a JSON list).
-    pub waves: Vec<crate::calibration::Wave>,
+    pub waves: Vec<crate::status::Wave>,
 }
 
 impl FileNotes {
@@ -878,5 +878,5 @@ impl FileNotes {
 }
 
 /// The note holding the calibration waves (a JSON list of
-/// [`crate::calibration::Wave`]).
+/// [`crate::status::Wave`]).
 pub const WAVES_NOTE: &str = "calibration_waves";

@@ -83,7 +83,7 @@ pub struct SweepStatus {
     /// Each batch of proposals waits for every result before it.
     pub reproducible: bool,
     /// Calibration waves so far, oldest first.
-    pub waves: Vec<crate::calibration::Wave>,
+    pub waves: Vec<Wave>,
 }
 
 /// Per-point results, for the best point and the planner.
@@ -277,4 +277,18 @@ pub fn failure_region(spec: &Spec, results: &[PointResults]) -> Option<String> {
         failed - f_in,
         total - n_in
     ))
+}
+
+/// One calibration wave as recorded in the sweep file's notes and shown
+/// by `tessera status`: the region when the wave's points were chosen.
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct Wave {
+    /// 1 for the first wave after the initial design.
+    pub wave: u32,
+    /// Points with results that the surrogates were fitted to.
+    pub points: usize,
+    /// The non-implausible share of the box.
+    pub fraction: f64,
+    /// Its Monte Carlo standard error.
+    pub fraction_se: f64,
 }

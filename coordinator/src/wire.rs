@@ -168,7 +168,7 @@ pub fn status_from_reply(r: pb::StatusReply) -> SweepStatus {
         waves: r
             .waves
             .into_iter()
-            .map(|w| crate::calibration::Wave {
+            .map(|w| crate::status::Wave {
                 wave: w.wave,
                 points: w.points as usize,
                 fraction: w.fraction,
@@ -252,7 +252,7 @@ pub fn query_status(e: QueryError) -> Status {
         | QueryError::NoPoints { .. }
         | QueryError::NotAParameter { .. }
         | QueryError::NoSuchMetric { .. } => Status::invalid_argument(e.to_string()),
-        QueryError::NoFits { .. } | QueryError::NoSweep { .. } => {
+        QueryError::NoFits { .. } | QueryError::NoSweep { .. } | QueryError::NoTargets => {
             Status::failed_precondition(e.to_string())
         }
         QueryError::Store(_) => Status::unavailable(e.to_string()),

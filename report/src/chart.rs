@@ -77,7 +77,9 @@ pub trait Figure {
 /// The font every figure uses.
 const FONT: &str = "sans-serif";
 
-fn fonts() {
+/// Registers the embedded font with plotters (done by [`save`]; call it
+/// before drawing on a backend of your own).
+pub fn fonts() {
     static DONE: OnceLock<()> = OnceLock::new();
     DONE.get_or_init(|| {
         // The bundled font is a valid TrueType file; a failure here would
@@ -590,7 +592,7 @@ pub fn contour(xs: &[f64], ys: &[f64], z: &[Vec<f64>], level: f64) -> Vec<[(f64,
 
 /// Round contour levels inside `[lo, hi]` (about `n` of them).
 pub fn levels(lo: f64, hi: f64, n: usize) -> Vec<f64> {
-    if !(hi > lo) || n == 0 {
+    if hi.is_nan() || lo.is_nan() || hi <= lo || n == 0 {
         return Vec::new();
     }
     let raw = (hi - lo) / n as f64;
@@ -766,13 +768,19 @@ impl Figure for MapPlot {
     }
 }
 
+/// A value with the ends of its interval: `(value, lo, hi)`.
+pub type Estimate = (f64, f64, f64);
+
+/// One histogram: its axis, the samples, an interval to shade.
+pub type HistPanel = (Axis, Vec<f64>, Option<(f64, f64)>);
+
 /// Sensitivity indices as bars with intervals: first order and total per parameter.
 #[derive(Clone, Debug, Default)]
 pub struct BarPlot {
     /// Title.
     pub title: String,
     /// Per parameter: name, first order `(value, lo, hi)`, total `(value, lo, hi)`.
-    pub bars: Vec<(String, (f64, f64, f64), (f64, f64, f64))>,
+    pub bars: Vec<(String, Estimate, Estimate)>,
 }
 
 impl Figure for BarPlot {
@@ -881,7 +889,7 @@ pub struct HistPanels {
     /// Title.
     pub title: String,
     /// Per panel: axis, samples, a shaded interval `[lo, hi]`.
-    pub panels: Vec<(Axis, Vec<f64>, Option<(f64, f64)>)>,
+    pub panels: Vec<HistPanel>,
     /// Draw the density of a uniform distribution over each axis (in its scale).
     pub uniform_reference: bool,
 }

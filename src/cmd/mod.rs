@@ -3,6 +3,7 @@
 
 use anyhow::Context;
 
+pub mod calibrate;
 pub mod check;
 pub mod check_fit;
 pub mod export;

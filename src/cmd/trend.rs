@@ -75,6 +75,7 @@ fn plot(t: &Trend, out: &Path) -> anyhow::Result<()> {
         });
     anyhow::ensure!(x0.is_finite() && y0.is_finite(), "nothing to plot");
     let pad = ((y1 - y0) * 0.08).max(1e-12);
+    tessera_report::chart::fonts();
     let root = SVGBackend::new(out, (900, 560)).into_drawing_area();
     let draw =
         |e: DrawingAreaErrorKind<std::io::Error>| anyhow::anyhow!("cannot draw the plot: {e}");

@@ -214,22 +214,17 @@ pub fn split_rhat(chains: &[Vec<f64>]) -> f64 {
     bulk.max(tail)
 }
 
-/// Autocovariances of one chain at lags `0..n` (divided by `n`, the
-/// estimator that keeps the sequence positive definite).
-fn autocovariance(c: &[f64]) -> Vec<f64> {
-    let n = c.len();
-    let mean = c.iter().sum::<f64>() / n as f64;
-    let x: Vec<f64> = c.iter().map(|v| v - mean).collect();
-    (0..n)
-        .map(|t| {
-            x[..n - t]
-                .iter()
-                .zip(&x[t..])
-                .map(|(a, b)| a * b)
-                .sum::<f64>()
-                / n as f64
-        })
-        .collect()
+/// The autocovariance of a centred chain at lag `t` (divided by `n`, the
+/// estimator that keeps the sequence positive definite; computed only for
+/// the lags the sum needs).
+fn autocovariance(x: &[f64], t: usize) -> f64 {
+    let n = x.len();
+    x[..n - t]
+        .iter()
+        .zip(&x[t..])
+        .map(|(a, b)| a * b)
+        .sum::<f64>()
+        / n as f64
 }
 
 /// The effective sample size of equal-length chains (Vehtari et al. 2021,
@@ -242,18 +237,33 @@ pub fn ess(chains: &[Vec<f64>]) -> f64 {
         return f64::NAN;
     }
     let (mf, nf) = (m as f64, n as f64);
-    let acov: Vec<Vec<f64>> = chains.iter().map(|c| autocovariance(c)).collect();
+    let (lo, hi) = chains
+        .iter()
+        .flatten()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+            (a.min(v), b.max(v))
+        });
+    if hi - lo < 1e-15 {
+        // Constant draws carry no autocorrelation to estimate.
+        return mf * nf;
+    }
     let means: Vec<f64> = chains.iter().map(|c| c.iter().sum::<f64>() / nf).collect();
-    let mean_var = acov.iter().map(|a| a[0]).sum::<f64>() / mf * nf / (nf - 1.0);
+    let centred: Vec<Vec<f64>> = chains
+        .iter()
+        .zip(&means)
+        .map(|(c, m)| c.iter().map(|v| v - m).collect())
+        .collect();
+    let acov_mean = |t: usize| centred.iter().map(|x| autocovariance(x, t)).sum::<f64>() / mf;
+    let mean_var = acov_mean(0) * nf / (nf - 1.0);
     let mut var_plus = mean_var * (nf - 1.0) / nf;
     if m > 1 {
         let g = means.iter().sum::<f64>() / mf;
         var_plus += means.iter().map(|x| (x - g).powi(2)).sum::<f64>() / (mf - 1.0);
     }
-    if !(var_plus > 0.0) {
+    if var_plus.is_nan() || var_plus <= 0.0 {
         return f64::NAN;
     }
-    let rho = |t: usize| 1.0 - (mean_var - acov.iter().map(|a| a[t]).sum::<f64>() / mf) / var_plus;
+    let rho = |t: usize| 1.0 - (mean_var - acov_mean(t)) / var_plus;
     let mut rho_t = vec![0.0; n];
     rho_t[0] = 1.0;
     let mut even = 1.0;
@@ -270,8 +280,8 @@ pub fn ess(chains: &[Vec<f64>]) -> f64 {
         t += 2;
     }
     let max_t = t - 2;
-    if odd > 0.0 {
-        rho_t[max_t + 1] = odd;
+    if even > 0.0 {
+        rho_t[max_t + 1] = even;
     }
     // Initial monotone sequence.
     let mut t = 1;

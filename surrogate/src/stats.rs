@@ -5,6 +5,8 @@
 /// The standard normal quantile function `Phi^-1(p)` by Wichura's
 /// algorithm AS 241 (PPND16; Applied Statistics 37:477-484, 1988), about
 /// 1e-16 relative accuracy. `p` outside (0, 1) gives -inf, +inf or NaN.
+// The coefficients are written as published, digits grouped after the point only.
+#[allow(clippy::inconsistent_digit_grouping, clippy::excessive_precision)]
 pub fn normal_quantile(p: f64) -> f64 {
     if p.is_nan() || !(0.0..=1.0).contains(&p) {
         return f64::NAN;

@@ -189,7 +189,7 @@ impl Transform {
 
     /// Mean and variance of `inverse(Z)`, `Z ~ N(mu, sd^2)`.
     fn moments(&self, mu: f64, sd: f64) -> (f64, f64) {
-        if !(sd > 0.0) {
+        if sd.is_nan() || sd <= 0.0 {
             return (self.inverse(mu), 0.0);
         }
         let (x, w) = hermite();

@@ -5,6 +5,7 @@
 //! temporary directory and cleans them up.
 
 mod adaptive;
+mod calibration;
 mod deploy_files;
 mod distributed;
 mod external_model;

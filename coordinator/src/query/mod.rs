@@ -7,9 +7,15 @@
 //! (`tessera predict --db`) and online by the coordinator's `Predict` call
 //! (through [`crate::wire`]).
 
+mod calibrate;
 mod predict;
 mod trend;
 mod verdict;
+
+pub use calibrate::{
+    calibrate, CalibrateOptions, Calibration, Correlation, Diagnostics, Finding, Marginal, Match,
+    RegionAnswer, TargetUse, CONSTRAINED, ESS_WARN, PINNED, RHAT_WARN,
+};
 
 pub use predict::{
     natural_to_unit, parse_assignment, predict, short as short_number, MetricPrediction,
@@ -120,6 +126,9 @@ pub enum QueryError {
         /// The fitted metrics, comma separated.
         fitted: String,
     },
+    /// Calibration was asked of a sweep without targets.
+    #[error("the sweep has no [[target]] tables, so there is nothing to calibrate against; add one per measured metric (metric, value, sd) to the sweep file and continue the sweep")]
+    NoTargets,
     /// A bug or an impossible state.
     #[error("internal error: {0}")]
     Internal(String),
@@ -195,4 +204,13 @@ pub fn load_fits(db: &Path) -> Result<(Spec, Vec<crate::fitter::MetricFit>), Que
         });
     }
     Ok((spec, fits))
+}
+
+/// The per-point results stored in a database (read-only), in point order.
+pub fn load_results(db: &Path) -> Result<Vec<crate::status::PointResults>, QueryError> {
+    let store = Store::open_read_only(db)?;
+    let (sweep_id, _) = open_sweep(&store)?;
+    let points = store.points(sweep_id)?;
+    let evals = store.evaluations(sweep_id)?;
+    Ok(crate::fitter::point_results(&points, &evals))
 }
