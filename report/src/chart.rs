@@ -7,6 +7,7 @@
 //! PNG of one figure look alike on any machine.
 
 use plotters::coord::ranged1d::ValueFormatter;
+use plotters::coord::combinators::BindKeyPoints;
 use plotters::coord::Shift;
 use plotters::prelude::*;
 use std::path::Path;
@@ -266,6 +267,37 @@ pub fn tick(v: f64) -> String {
     s.to_string()
 }
 
+/// Tick positions for a log axis over `[lo, hi]`: 1, 2 and 5 times powers
+/// of ten, or finer steps (1 to 9) when the range spans less than a decade.
+pub fn log_ticks(lo: f64, hi: f64) -> Vec<f64> {
+    if lo.is_nan() || hi.is_nan() || lo <= 0.0 || hi <= lo {
+        return Vec::new();
+    }
+    let pick = |mantissas: &[f64]| -> Vec<f64> {
+        let mut out = Vec::new();
+        let mut e = lo.log10().floor() as i32 - 1;
+        while 10f64.powi(e) <= hi * 10.0 && out.len() < 200 {
+            for m in mantissas {
+                let v = m * 10f64.powi(e);
+                if v >= lo * (1.0 - 1e-9) && v <= hi * (1.0 + 1e-9) {
+                    out.push(v);
+                }
+            }
+            e += 1;
+        }
+        out
+    };
+    let coarse = pick(&[1.0, 2.0, 5.0]);
+    if coarse.len() >= 3 {
+        // At most about 8 labels: thin to powers of ten on long ranges.
+        if coarse.len() > 9 {
+            return pick(&[1.0]);
+        }
+        return coarse;
+    }
+    pick(&[1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0])
+}
+
 /// Calls `$body` with a chart whose axes are `$x` and `$y` (each linear or
 /// logarithmic), so one drawing routine serves all four combinations.
 macro_rules! with_axes {
@@ -280,19 +312,28 @@ macro_rules! with_axes {
             }
             (true, false) => {
                 let mut $chart = $builder
-                    .build_cartesian_2d((x.lo..x.hi).log_scale(), y.lo..y.hi)
+                    .build_cartesian_2d(
+                        (x.lo..x.hi).log_scale().with_key_points(log_ticks(x.lo, x.hi)),
+                        y.lo..y.hi,
+                    )
                     .map_err(e2s)?;
                 $body
             }
             (false, true) => {
                 let mut $chart = $builder
-                    .build_cartesian_2d(x.lo..x.hi, (y.lo..y.hi).log_scale())
+                    .build_cartesian_2d(
+                        x.lo..x.hi,
+                        (y.lo..y.hi).log_scale().with_key_points(log_ticks(y.lo, y.hi)),
+                    )
                     .map_err(e2s)?;
                 $body
             }
             (true, true) => {
                 let mut $chart = $builder
-                    .build_cartesian_2d((x.lo..x.hi).log_scale(), (y.lo..y.hi).log_scale())
+                    .build_cartesian_2d(
+                        (x.lo..x.hi).log_scale().with_key_points(log_ticks(x.lo, x.hi)),
+                        (y.lo..y.hi).log_scale().with_key_points(log_ticks(y.lo, y.hi)),
+                    )
                     .map_err(e2s)?;
                 $body
             }
@@ -1265,6 +1306,14 @@ mod tests {
                 assert!((p.0 - 0.25).abs() < 1e-12);
             }
         }
+    }
+
+    #[test]
+    fn log_ticks_are_round_and_inside() {
+        assert_eq!(log_ticks(0.1, 10.0), vec![0.1, 0.2, 0.5, 1.0, 2.0, 5.0, 10.0]);
+        assert_eq!(log_ticks(0.5, 5.0), vec![0.5, 1.0, 2.0, 5.0]);
+        assert_eq!(log_ticks(2.0, 4.0), vec![2.0, 3.0, 4.0]);
+        assert_eq!(log_ticks(1e-3, 1e3), vec![1e-3, 1e-2, 0.1, 1.0, 10.0, 100.0, 1000.0]);
     }
 
     #[test]

@@ -259,21 +259,32 @@ pub fn run(args: RunArgs) -> anyhow::Result<ExitCode> {
         let first = spec
             .params
             .iter()
-            .map(|p| format!("{}={}", p.name, tessera_models::text::value(p.to_natural(0.5), p.integer)))
+            .map(|p| {
+                let mid = p.to_natural(0.5);
+                let v = if p.integer {
+                    tessera_models::text::value(mid, true)
+                } else {
+                    tessera_models::text::significant(mid, 3)
+                };
+                format!("{}={v}", p.name)
+            })
             .collect::<Vec<_>>()
             .join(" ");
+        let db_q = quote(&db.display().to_string());
         eprintln!("next:");
-        eprintln!("  tessera predict --db {} {first}    predicted metrics with uncertainty", db.display());
-        eprintln!("  tessera check-fit --db {}          can the surrogate be trusted?", db.display());
+        if !spec.targets.is_empty() {
+            eprintln!("  tessera calibrate --db {db_q}          which constants match the targets, and what they pin down");
+        }
+        eprintln!("  tessera predict --db {db_q} {first}    predicted metrics with uncertainty");
+        eprintln!("  tessera check-fit --db {db_q}          can the surrogate be trusted?");
         if let (Some(p), Some(o)) = (spec.params.first(), spec.objective.as_ref()) {
             eprintln!(
-                "  tessera trend --db {} {} --metric {}    the trend as a plot",
-                db.display(),
+                "  tessera trend --db {db_q} {} --metric {}    the trend as a plot",
                 p.name,
                 o.metric
             );
         }
-        eprintln!("  tessera export --db {}             every run as CSV", db.display());
+        eprintln!("  tessera export --db {db_q}             every run as CSV");
         anyhow::Ok(ExitCode::SUCCESS)
     })?;
     Ok(outcome)
