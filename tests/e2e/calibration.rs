@@ -218,3 +218,33 @@ maximize = "coverage"
     // Far from the data the interval is wide (so the bound is what keeps it inside).
     assert!(widest > 0.1, "widest interval {widest}");
 }
+
+// The example calibration of the built-in model: with its invented targets,
+// at least one constant comes out pinned and at least one not constrained.
+#[test]
+fn tiling_example_names_pinned_and_free_constants() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let src = concat!(env!("CARGO_MANIFEST_DIR"), "/examples/tiling-calibration.toml");
+    std::fs::copy(src, dir.join("tiling-calibration.toml")).expect("copy example");
+    ok(
+        &run_in(dir, &["run", "tiling-calibration.toml", "--workers", "2"]),
+        "tessera run",
+    );
+    let out = run_in(
+        dir,
+        &["calibrate", "--db", "tiling-calibration.db", "--json", "--out", "plots"],
+    );
+    ok(&out, "tessera calibrate");
+    let c: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    let verdicts: Vec<&str> = c["findings"]
+        .as_array()
+        .expect("findings")
+        .iter()
+        .filter_map(|f| f["verdict"].as_str())
+        .collect();
+    assert!(verdicts.contains(&"pinned"), "{verdicts:?}");
+    assert!(verdicts.contains(&"not constrained"), "{verdicts:?}");
+    let frac = num(&c, &["region", "fraction"]);
+    assert!(frac > 0.0 && frac < 0.5, "region share {frac}");
+}
