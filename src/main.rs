@@ -62,8 +62,10 @@ enum Command {
     Predict(cmd::predict::PredictArgs),
     /// Check how far each surrogate can be trusted (leave-one-out errors and a verdict).
     CheckFit(cmd::check_fit::CheckFitArgs),
-    /// Plot a metric against a parameter, from the surrogate, with its uncertainty.
+    /// Plot how a metric moves with one parameter (a curve) or two (a map), with its uncertainty.
     Trend(cmd::trend::TrendArgs),
+    /// Which constants matter for each metric (Sobol indices on the surrogates).
+    Sensitivity(cmd::sensitivity::SensitivityArgs),
     /// Find the constants that match the measured targets, and what the targets pin down.
     Calibrate(cmd::calibrate::CalibrateArgs),
     /// Write every evaluation in a sweep database as CSV or JSON lines.
@@ -97,6 +99,7 @@ fn main() -> ExitCode {
         Command::Predict(a) => cmd::predict::run(a),
         Command::CheckFit(a) => cmd::check_fit::run(a),
         Command::Trend(a) => cmd::trend::run(a),
+        Command::Sensitivity(a) => cmd::sensitivity::run(a),
         Command::Calibrate(a) => cmd::calibrate::run(a),
         Command::Export(a) => cmd::export::run(a),
         Command::Guard(a) => cmd::guard::run(a),

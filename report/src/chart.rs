@@ -6,8 +6,8 @@
 //! Text is laid out with the embedded DejaVu Sans in both, so an SVG and a
 //! PNG of one figure look alike on any machine.
 
-use plotters::coord::ranged1d::ValueFormatter;
 use plotters::coord::combinators::BindKeyPoints;
+use plotters::coord::ranged1d::ValueFormatter;
 use plotters::coord::Shift;
 use plotters::prelude::*;
 use std::path::Path;
@@ -313,7 +313,9 @@ macro_rules! with_axes {
             (true, false) => {
                 let mut $chart = $builder
                     .build_cartesian_2d(
-                        (x.lo..x.hi).log_scale().with_key_points(log_ticks(x.lo, x.hi)),
+                        (x.lo..x.hi)
+                            .log_scale()
+                            .with_key_points(log_ticks(x.lo, x.hi)),
                         y.lo..y.hi,
                     )
                     .map_err(e2s)?;
@@ -323,7 +325,9 @@ macro_rules! with_axes {
                 let mut $chart = $builder
                     .build_cartesian_2d(
                         x.lo..x.hi,
-                        (y.lo..y.hi).log_scale().with_key_points(log_ticks(y.lo, y.hi)),
+                        (y.lo..y.hi)
+                            .log_scale()
+                            .with_key_points(log_ticks(y.lo, y.hi)),
                     )
                     .map_err(e2s)?;
                 $body
@@ -331,8 +335,12 @@ macro_rules! with_axes {
             (true, true) => {
                 let mut $chart = $builder
                     .build_cartesian_2d(
-                        (x.lo..x.hi).log_scale().with_key_points(log_ticks(x.lo, x.hi)),
-                        (y.lo..y.hi).log_scale().with_key_points(log_ticks(y.lo, y.hi)),
+                        (x.lo..x.hi)
+                            .log_scale()
+                            .with_key_points(log_ticks(x.lo, x.hi)),
+                        (y.lo..y.hi)
+                            .log_scale()
+                            .with_key_points(log_ticks(y.lo, y.hi)),
                     )
                     .map_err(e2s)?;
                 $body
@@ -1310,10 +1318,16 @@ mod tests {
 
     #[test]
     fn log_ticks_are_round_and_inside() {
-        assert_eq!(log_ticks(0.1, 10.0), vec![0.1, 0.2, 0.5, 1.0, 2.0, 5.0, 10.0]);
+        assert_eq!(
+            log_ticks(0.1, 10.0),
+            vec![0.1, 0.2, 0.5, 1.0, 2.0, 5.0, 10.0]
+        );
         assert_eq!(log_ticks(0.5, 5.0), vec![0.5, 1.0, 2.0, 5.0]);
         assert_eq!(log_ticks(2.0, 4.0), vec![2.0, 3.0, 4.0]);
-        assert_eq!(log_ticks(1e-3, 1e3), vec![1e-3, 1e-2, 0.1, 1.0, 10.0, 100.0, 1000.0]);
+        assert_eq!(
+            log_ticks(1e-3, 1e3),
+            vec![1e-3, 1e-2, 0.1, 1.0, 10.0, 100.0, 1000.0]
+        );
     }
 
     #[test]

@@ -12,6 +12,7 @@ pub mod init;
 pub mod net;
 pub mod predict;
 pub mod run;
+pub mod sensitivity;
 pub mod serve;
 pub mod simulate;
 pub mod status;

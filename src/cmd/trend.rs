@@ -1,52 +1,67 @@
-//! `tessera trend`: one metric against one parameter, from the surrogate,
-//! with its 95% band and the observed points, as an SVG plot and a table.
+//! `tessera trend`: how a metric moves with one parameter (a curve) or two
+//! (a map), from the surrogate, with its uncertainty and the observed
+//! points, as an SVG or PNG plot and a table.
 
 use anyhow::Context;
-use plotters::prelude::*;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
-use tessera_coordinator::query::{self, Trend};
-use tessera_coordinator::store::Store;
+use tessera_coordinator::query::{self, effects, Trend, TrendKind};
+use tessera_coordinator::spec::{Scale, Spec};
+use tessera_coordinator::store::{EvalStatus, Store};
+use tessera_report::chart::{self, Axis};
 
 /// Arguments of `tessera trend`.
 #[derive(clap::Args, Debug)]
 #[command(after_help = "\
 Examples:
   tessera trend --db sweep.db height_sd --metric territory_cv
-      territory spread against height spread, the other parameters at mid-range;
-      writes sweep-territory_cv-vs-height_sd.svg
+      the main effect: territory spread against height spread, averaged over
+      the other parameters; writes sweep-territory_cv-vs-height_sd.svg
   tessera trend --db sweep.db height_sd --metric territory_cv --at exclusion=15
-      the same with the body spacing held at 15 um
+      a slice: the other parameters held (exclusion at 15 um, the rest mid-range)
+  tessera trend --db sweep.db height_sd exclusion --metric territory_cv --out map.png
+      a map over two parameters: mean with contour lines, and its sd beside it
 
 The line is the surrogate's predicted mean, the band its 95% interval (the
 uncertainty of the mean, not the spread of single runs). Dots are the observed
 point means, at whatever values the other parameters had: they scatter around
-the line where those other parameters matter.")]
+a main effect where those other parameters matter. A green band is the target
+measured for this metric; grey shading marks where the surrogate knows little.")]
 pub struct TrendArgs {
     /// The sweep database.
     #[arg(long, value_name = "FILE")]
     pub db: PathBuf,
     /// The parameter along the x axis.
     pub param: String,
-    /// The metric on the y axis (default: the objective's metric, else the first fitted one).
+    /// A second parameter: draw a map over both.
+    pub param2: Option<String>,
+    /// The metric (default: the objective's metric, else the first fitted one).
     #[arg(long, value_name = "NAME")]
     pub metric: Option<String>,
-    /// Hold another parameter at this value (default: the middle of its range).
+    /// Draw a slice with this parameter held at this value (the others at
+    /// mid-range) instead of the main effect; may be repeated.
     #[arg(long = "at", value_name = "NAME=VALUE")]
     pub at: Vec<String>,
-    /// Points along the curve.
-    #[arg(long, default_value = "60", value_name = "N")]
-    pub steps: usize,
-    /// Where to write the plot (SVG).
-    #[arg(long, value_name = "FILE.svg")]
+    /// Draw a slice with every other parameter at mid-range.
+    #[arg(long)]
+    pub slice: bool,
+    /// Points along the curve (cells per side of a map).
+    #[arg(long, value_name = "N")]
+    pub steps: Option<usize>,
+    /// Where to write the plot: .svg or .png (default: next to the database).
+    #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
-    /// Print the curve as JSON instead of a table.
+    /// Print the curve (or the map) as JSON instead of a table.
     #[arg(long)]
     pub json: bool,
+    /// Seed of the Monte Carlo averages.
+    #[arg(long, default_value = "1", value_name = "N")]
+    pub seed: u64,
 }
 
-fn label(name: &str, unit: &str) -> String {
+/// `name [unit]`, or the name alone.
+pub fn label(name: &str, unit: &str) -> String {
     if unit.is_empty() {
         name.to_string()
     } else {
@@ -54,107 +69,84 @@ fn label(name: &str, unit: &str) -> String {
     }
 }
 
-/// Draws `t` as an SVG file.
-fn plot(t: &Trend, out: &Path) -> anyhow::Result<()> {
-    let (x0, x1) = t
-        .curve
-        .iter()
-        .map(|s| s.x)
-        .chain(t.observed.iter().map(|o| o.x))
-        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), x| {
-            (a.min(x), b.max(x))
-        });
-    let (y0, y1) = t
-        .curve
-        .iter()
-        .flat_map(|s| [s.lower95, s.upper95])
-        .chain(t.observed.iter().map(|o| o.mean))
-        .filter(|v| v.is_finite())
-        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), y| {
-            (a.min(y), b.max(y))
-        });
-    anyhow::ensure!(x0.is_finite() && y0.is_finite(), "nothing to plot");
-    let pad = ((y1 - y0) * 0.08).max(1e-12);
-    tessera_report::chart::fonts();
-    let root = SVGBackend::new(out, (900, 560)).into_drawing_area();
-    let draw =
-        |e: DrawingAreaErrorKind<std::io::Error>| anyhow::anyhow!("cannot draw the plot: {e}");
-    root.fill(&WHITE).map_err(draw)?;
-    let held = t
-        .held
-        .iter()
-        .map(|(k, v)| format!("{k}={}", query::short_number(*v)))
-        .collect::<Vec<_>>()
-        .join(", ");
-    let title = if held.is_empty() {
-        format!("{} against {}", t.metric, t.param)
-    } else {
-        format!("{} against {} ({held})", t.metric, t.param)
+/// The axis of parameter `name` (log when the parameter is log-scaled).
+pub fn param_axis(spec: &Spec, name: &str) -> Option<Axis> {
+    let p = spec.params.iter().find(|p| p.name == name)?;
+    Some(Axis::new(
+        label(&p.name, &p.unit),
+        p.lo,
+        p.hi,
+        p.scale == Scale::Log,
+    ))
+}
+
+/// The figure of a curve.
+pub fn curve_figure(t: &Trend, spec: &Spec) -> chart::CurvePlot {
+    let what = match t.kind {
+        TrendKind::MainEffect => "main effect: averaged over the other parameters",
+        TrendKind::Slice => "slice: the other parameters held",
     };
-    let mut chart = ChartBuilder::on(&root)
-        .caption(title, ("sans-serif", 22))
-        .margin(16)
-        .x_label_area_size(48)
-        .y_label_area_size(72)
-        .build_cartesian_2d(x0..x1, (y0 - pad)..(y1 + pad))
-        .map_err(draw)?;
-    chart
-        .configure_mesh()
-        .x_desc(label(&t.param, &t.param_unit))
-        .y_desc(label(&t.metric, &t.metric_unit))
-        .light_line_style(WHITE.mix(0.0))
-        .draw()
-        .map_err(draw)?;
-    let band_color = RGBColor(70, 110, 180);
-    let band: Vec<(f64, f64)> = t
-        .curve
+    let bounds = spec.bounds_of(&t.metric);
+    chart::CurvePlot {
+        title: format!("{} against {} ({what})", t.metric, t.param),
+        x: param_axis(spec, &t.param),
+        y_label: label(&t.metric, &t.metric_unit),
+        curve: t
+            .curve
+            .iter()
+            .map(|s| (s.x, s.mean, s.lower95, s.upper95))
+            .collect(),
+        curve_label: "surrogate mean, 95% band".into(),
+        observed: t.observed.iter().map(|o| (o.x, o.mean)).collect(),
+        observed_label: "observed point means".into(),
+        target: t.target.map(|(v, sd)| {
+            (
+                v,
+                sd,
+                format!(
+                    "target {} +- {}",
+                    query::short_number(v),
+                    query::short_number(sd)
+                ),
+            )
+        }),
+        unsure: t.unsure.clone(),
+        y_bounds: bounds,
+    }
+}
+
+/// Observed `(x, y)` parameter pairs of the points with results.
+fn observed_pairs(
+    spec: &Spec,
+    points: &[tessera_coordinator::store::PointRecord],
+    done: &std::collections::BTreeSet<i64>,
+    kx: usize,
+    ky: usize,
+) -> Vec<(f64, f64)> {
+    points
         .iter()
-        .map(|s| (s.x, s.upper95))
-        .chain(t.curve.iter().rev().map(|s| (s.x, s.lower95)))
-        .collect();
-    chart
-        .draw_series(std::iter::once(Polygon::new(
-            band,
-            band_color.mix(0.22).filled(),
-        )))
-        .map_err(draw)?
-        .label("95% interval of the mean")
-        .legend(move |(x, y)| {
-            Rectangle::new([(x, y - 5), (x + 18, y + 5)], band_color.mix(0.22).filled())
-        });
-    chart
-        .draw_series(LineSeries::new(
-            t.curve.iter().map(|s| (s.x, s.mean)),
-            band_color.stroke_width(3),
-        ))
-        .map_err(draw)?
-        .label("surrogate mean")
-        .legend(move |(x, y)| {
-            PathElement::new(vec![(x, y), (x + 18, y)], band_color.stroke_width(3))
-        });
-    let dot = RGBColor(200, 90, 40);
-    chart
-        .draw_series(
-            t.observed
-                .iter()
-                .map(|o| Circle::new((o.x, o.mean), 4, dot.stroke_width(2))),
-        )
-        .map_err(draw)?
-        .label("observed point means (other parameters vary)")
-        .legend(move |(x, y)| Circle::new((x + 9, y), 4, dot.stroke_width(2)));
-    chart
-        .configure_series_labels()
-        .background_style(WHITE.mix(0.85))
-        .border_style(BLACK.mix(0.3))
-        .position(SeriesLabelPosition::UpperLeft)
-        .draw()
-        .map_err(draw)?;
-    root.present().map_err(draw)?;
-    Ok(())
+        .filter(|p| done.contains(&p.id) && p.values.len() == spec.dimension())
+        .map(|p| (p.values[kx], p.values[ky]))
+        .collect()
+}
+
+fn default_out(db: &Path, metric: &str, what: &str) -> PathBuf {
+    let stem = db
+        .file_stem()
+        .map(|s| s.to_string_lossy().to_string())
+        .unwrap_or_else(|| "sweep".into());
+    db.with_file_name(format!(
+        "{stem}-{}-vs-{}.svg",
+        super::file_word(metric),
+        super::file_word(what)
+    ))
 }
 
 /// Runs `tessera trend`.
 pub fn run(args: TrendArgs) -> anyhow::Result<ExitCode> {
+    if let Some(out) = &args.out {
+        chart::format_of(out)?;
+    }
     let (spec, fits) = query::load_fits(&args.db)?;
     let store = Store::open_read_only(&args.db)?;
     let sweep = store
@@ -162,20 +154,30 @@ pub fn run(args: TrendArgs) -> anyhow::Result<ExitCode> {
         .with_context(|| format!("{} holds no sweep yet", args.db.display()))?;
     let points = store.points(sweep.id)?;
     let evals = store.evaluations(sweep.id)?;
+    drop(store);
     let metric = match &args.metric {
         Some(m) => m.clone(),
         None => spec
             .objective
             .as_ref()
             .map(|o| o.metric.clone())
+            .or_else(|| spec.targets.first().map(|t| t.metric.clone()))
             .or_else(|| fits.first().map(|f| f.metric.clone()))
             .context("no surrogate yet: the sweep has no results at enough points")?,
     };
+    if let Some(p2) = &args.param2 {
+        return run_map(&args, &spec, &fits, &points, &evals, p2, &metric);
+    }
     let mut held = BTreeMap::new();
     for a in &args.at {
         let (k, v) = query::parse_assignment(a)?;
         held.insert(k, v);
     }
+    let kind = if args.slice || !held.is_empty() {
+        TrendKind::Slice
+    } else {
+        TrendKind::MainEffect
+    };
     let t = query::trend(
         &fits,
         &spec,
@@ -184,40 +186,34 @@ pub fn run(args: TrendArgs) -> anyhow::Result<ExitCode> {
         &args.param,
         &metric,
         &held,
-        args.steps,
+        args.steps.unwrap_or(60),
+        kind,
+        args.seed,
     )?;
-    let out = args.out.clone().unwrap_or_else(|| {
-        let stem = args
-            .db
-            .file_stem()
-            .map(|s| s.to_string_lossy().to_string())
-            .unwrap_or_else(|| "sweep".into());
-        args.db.with_file_name(format!(
-            "{stem}-{}-vs-{}.svg",
-            super::file_word(&t.metric),
-            t.param
-        ))
-    });
-    plot(&t, &out).with_context(|| format!("cannot write the plot {}", out.display()))?;
+    let out = args
+        .out
+        .clone()
+        .unwrap_or_else(|| default_out(&args.db, &t.metric, &t.param));
+    chart::save(&curve_figure(&t, &spec), &out)?;
     if args.json {
         println!("{}", serde_json::to_string_pretty(&t)?);
     } else {
         let every = (t.curve.len() / 10).max(1);
         println!(
-            "{} against {}{}",
+            "{} against {}: {}",
             label(&t.metric, &t.metric_unit),
             label(&t.param, &t.param_unit),
-            if t.held.is_empty() {
-                String::new()
-            } else {
-                format!(
-                    ", others held at {}",
+            match t.kind {
+                TrendKind::MainEffect =>
+                    "main effect (averaged over the other parameters)".to_string(),
+                TrendKind::Slice => format!(
+                    "slice, others held at {}",
                     t.held
                         .iter()
                         .map(|(k, v)| format!("{k}={}", query::short_number(*v)))
                         .collect::<Vec<_>>()
                         .join(" ")
-                )
+                ),
             }
         );
         println!(
@@ -240,18 +236,122 @@ pub fn run(args: TrendArgs) -> anyhow::Result<ExitCode> {
             }
         }
     }
-    let unsure: Vec<f64> = t
-        .curve
+    for w in &t.warnings {
+        eprintln!("warning: {w}");
+    }
+    eprintln!("plot written to {}", out.display());
+    Ok(ExitCode::SUCCESS)
+}
+
+#[allow(clippy::too_many_arguments)]
+fn run_map(
+    args: &TrendArgs,
+    spec: &Spec,
+    fits: &[tessera_coordinator::fitter::MetricFit],
+    points: &[tessera_coordinator::store::PointRecord],
+    evals: &[tessera_coordinator::store::EvaluationRecord],
+    p2: &str,
+    metric: &str,
+) -> anyhow::Result<ExitCode> {
+    if !args.at.is_empty() || args.slice {
+        anyhow::bail!("a map averages over the other parameters; --at and --slice are for curves (give one parameter)");
+    }
+    let position = |name: &str| {
+        spec.params
+            .iter()
+            .position(|p| p.name == name)
+            .ok_or_else(|| query::QueryError::NotAParameter {
+                name: name.to_string(),
+                valid: query::describe_params(spec),
+            })
+    };
+    let (kx, ky) = (position(&args.param)?, position(p2)?);
+    if kx == ky {
+        anyhow::bail!("give two different parameters for a map, or one for a curve");
+    }
+    let fit = fits.iter().find(|f| f.metric == metric).ok_or_else(|| {
+        query::QueryError::NoSuchMetric {
+            metric: metric.to_string(),
+            fitted: fits
+                .iter()
+                .map(|f| f.metric.as_str())
+                .collect::<Vec<_>>()
+                .join(", "),
+        }
+    })?;
+    let m = effects::map(fit, spec, kx, ky, args.steps.unwrap_or(30), args.seed)?;
+    let done: std::collections::BTreeSet<i64> = evals
         .iter()
-        .filter(|s| s.sd_ratio > query::SD_RATIO_WARN)
-        .map(|s| s.x)
+        .filter(|e| e.status == EvalStatus::Done)
+        .map(|e| e.point_id)
         .collect();
-    if let (Some(a), Some(b)) = (unsure.first(), unsure.last()) {
+    let observed = observed_pairs(spec, points, &done, kx, ky);
+    let out = args
+        .out
+        .clone()
+        .unwrap_or_else(|| default_out(&args.db, metric, &format!("{}-{}", args.param, p2)));
+    let fig = chart::MapPlot {
+        title: format!(
+            "{} over {} and {}{}",
+            label(metric, &fit.unit),
+            args.param,
+            p2,
+            if spec.dimension() > 2 {
+                " (averaged over the other parameters)"
+            } else {
+                ""
+            }
+        ),
+        x: param_axis(spec, &args.param),
+        y: param_axis(spec, p2),
+        xs: m.xs.clone(),
+        ys: m.ys.clone(),
+        mean: m.mean.clone(),
+        sd: m.sd.clone(),
+        metric: label(metric, &fit.unit),
+        observed: observed.clone(),
+    };
+    chart::save(&fig, &out)?;
+    let unsure = m
+        .sd_ratio
+        .iter()
+        .flatten()
+        .filter(|r| **r > query::SD_RATIO_WARN)
+        .count();
+    if args.json {
+        let v = serde_json::json!({
+            "kind": "map",
+            "metric": metric,
+            "metric_unit": fit.unit,
+            "x_param": m.x_param,
+            "y_param": m.y_param,
+            "grid": m,
+            "observed": observed.iter().map(|(a, b)| serde_json::json!({"x": a, "y": b})).collect::<Vec<_>>(),
+        });
+        println!("{}", serde_json::to_string_pretty(&v)?);
+    } else {
+        let (lo, hi) = m
+            .mean
+            .iter()
+            .flatten()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+                (a.min(*v), b.max(*v))
+            });
+        println!(
+            "{} over {} and {}: from {} to {} ({} x {} grid; the plot shows it)",
+            label(metric, &fit.unit),
+            args.param,
+            p2,
+            query::short_number(lo),
+            query::short_number(hi),
+            m.xs.len(),
+            m.ys.len()
+        );
+    }
+    if unsure > 0 {
         eprintln!(
-            "warning: between {} = {} and {} the surrogate knows little (sd above {:.0}% of the prior sd): add points there before trusting this part of the curve",
-            t.param,
-            query::short_number(*a),
-            query::short_number(*b),
+            "warning: the surrogate knows little in {unsure} of {} cells (sd above {:.0}% of the prior sd); see the sd map",
+            m.xs.len() * m.ys.len(),
             query::SD_RATIO_WARN * 100.0
         );
     }

@@ -52,6 +52,14 @@ pub fn maximin_lhs(n: usize, d: usize, seed: u64) -> Vec<Vec<f64>> {
 }
 
 /// A random Latin hypercube (no optimisation).
+/// A random Latin hypercube of `n` points in `d` dimensions (no
+/// optimisation; for Monte Carlo averages, where stratifying each input is
+/// what counts).
+pub fn latin_hypercube(n: usize, d: usize, seed: u64) -> Vec<Vec<f64>> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    random_lhs(n, d, &mut rng)
+}
+
 fn random_lhs(n: usize, d: usize, rng: &mut ChaCha8Rng) -> Vec<Vec<f64>> {
     let mut x = vec![vec![0.0; d]; n];
     let mut perm: Vec<usize> = (0..n).collect();

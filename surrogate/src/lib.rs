@@ -10,7 +10,8 @@
 //! [`gp`] (Gaussian-process regression: fit, predict, leave-one-out),
 //! [`acquisition`] (expected improvement and the choice of new points),
 //! [`transform`] (fitting bounded metrics on an unbounded scale),
-//! [`mcmc`] (posterior sampling and convergence diagnostics), [`stats`]
+//! [`mcmc`] (posterior sampling and convergence diagnostics), [`sobol`]
+//! (variance-based sensitivity indices), [`stats`]
 //! (quantiles, ranks, correlation, normal quantiles, Kolmogorov-Smirnov).
 //!
 //! ```
@@ -32,5 +33,6 @@ pub mod acquisition;
 pub mod design;
 pub mod gp;
 pub mod mcmc;
+pub mod sobol;
 pub mod stats;
 pub mod transform;

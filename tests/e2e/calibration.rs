@@ -225,7 +225,10 @@ maximize = "coverage"
 fn tiling_example_names_pinned_and_free_constants() {
     let tmp = tempfile::tempdir().expect("temp dir");
     let dir = tmp.path();
-    let src = concat!(env!("CARGO_MANIFEST_DIR"), "/examples/tiling-calibration.toml");
+    let src = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/examples/tiling-calibration.toml"
+    );
     std::fs::copy(src, dir.join("tiling-calibration.toml")).expect("copy example");
     ok(
         &run_in(dir, &["run", "tiling-calibration.toml", "--workers", "2"]),
@@ -233,7 +236,14 @@ fn tiling_example_names_pinned_and_free_constants() {
     );
     let out = run_in(
         dir,
-        &["calibrate", "--db", "tiling-calibration.db", "--json", "--out", "plots"],
+        &[
+            "calibrate",
+            "--db",
+            "tiling-calibration.db",
+            "--json",
+            "--out",
+            "plots",
+        ],
     );
     ok(&out, "tessera calibrate");
     let c: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");

@@ -8,9 +8,13 @@
 //! (through [`crate::wire`]).
 
 mod calibrate;
+pub mod effects;
 mod predict;
+mod sensitivity;
 mod trend;
 mod verdict;
+
+pub use sensitivity::{sensitivity, Index, MetricSensitivity, ParamIndices};
 
 pub use calibrate::{
     calibrate, CalibrateOptions, Calibration, Correlation, Diagnostics, Finding, Marginal, Match,
@@ -21,7 +25,7 @@ pub use predict::{
     natural_to_unit, parse_assignment, predict, short as short_number, MetricPrediction,
     PointPrediction, SD_RATIO_WARN, Z95,
 };
-pub use trend::{trend, Observed, Trend, TrendStep};
+pub use trend::{trend, Observed, Trend, TrendKind, TrendStep};
 pub use verdict::{
     check_fit, FitVerdict, Verdict, MAX_COVERAGE, MIN_COVERAGE, MIN_Q2, POINTS_PER_PARAM,
 };

@@ -1,6 +1,8 @@
 //! Trends: how one metric's predicted mean and its uncertainty change along
-//! one parameter while the others are held at chosen values, next to the
-//! observed per-point means. `tessera trend` draws it.
+//! one parameter, next to the observed per-point means. `tessera trend`
+//! draws it. The default is the main effect (the metric averaged over the
+//! other parameters, [`super::effects`]); a slice holds the others at
+//! chosen values.
 
 use super::{predict, QueryError};
 use crate::fitter::MetricFit;
@@ -36,28 +38,49 @@ pub struct Observed {
     pub replicates: u32,
 }
 
+/// What a curve shows.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum TrendKind {
+    /// The metric averaged over the other parameters (partial dependence).
+    MainEffect,
+    /// The metric with the other parameters held at fixed values.
+    Slice,
+}
+
 /// A trend of `metric` along `param`.
 #[derive(Clone, Debug, PartialEq, serde::Serialize)]
 pub struct Trend {
+    /// Main effect or slice.
+    pub kind: TrendKind,
     /// The parameter varied.
     pub param: String,
+    /// Whether the parameter is on a log scale (its axis is logarithmic).
+    pub log_scale: bool,
     /// Its unit.
     pub param_unit: String,
     /// The metric shown.
     pub metric: String,
     /// Its unit.
     pub metric_unit: String,
-    /// Values of the other parameters along the curve.
+    /// Values of the other parameters along a slice (empty for a main effect).
     pub held: BTreeMap<String, f64>,
     /// The curve, from the low to the high end of the range.
     pub curve: Vec<TrendStep>,
     /// Every point with results (at whatever values of the other parameters).
     pub observed: Vec<Observed>,
+    /// The target on this metric, if any: `(value, sd)`.
+    pub target: Option<(f64, f64)>,
+    /// Stretches of the parameter where the surrogate knows little.
+    pub unsure: Vec<(f64, f64)>,
+    /// Plain warnings (values outside the sampled range, little knowledge).
+    pub warnings: Vec<String>,
 }
 
 /// Computes the trend of `metric` along `param` in `steps` steps over the
-/// parameter's range (log-spaced on a log scale). Parameters not in `held`
-/// are held at the middle of their range (in the unit cube).
+/// parameter's range (log-spaced on a log scale): the main effect, or with
+/// `kind` [`TrendKind::Slice`] a slice where parameters not in `held` are
+/// held at the middle of their range (in the unit cube).
 #[allow(clippy::too_many_arguments)]
 pub fn trend(
     fits: &[MetricFit],
@@ -68,6 +91,8 @@ pub fn trend(
     metric: &str,
     held: &BTreeMap<String, f64>,
     steps: usize,
+    kind: TrendKind,
+    seed: u64,
 ) -> Result<Trend, QueryError> {
     let Some(pi) = spec.params.iter().position(|p| p.name == param) else {
         return Err(QueryError::NotAParameter {
@@ -115,7 +140,29 @@ pub fn trend(
             q
         })
         .collect();
+    let Some(fit) = fits.iter().find(|f| f.metric == metric) else {
+        return Err(QueryError::NoSuchMetric {
+            metric: metric.to_string(),
+            fitted: fits
+                .iter()
+                .map(|f| f.metric.as_str())
+                .collect::<Vec<_>>()
+                .join(", "),
+        });
+    };
     let preds = predict(fits, spec, &queries)?;
+    let mut warnings: Vec<String> = Vec::new();
+    if kind == TrendKind::Slice {
+        for w in preds.iter().flat_map(|p| p.warnings.iter()) {
+            // Warnings about the held values, not the varied one.
+            if !w.starts_with(&format!("{param} ="))
+                && !warnings.contains(w)
+                && !w.contains("knows little")
+            {
+                warnings.push(w.clone());
+            }
+        }
+    }
     let mut curve = Vec::with_capacity(steps);
     for (x, pp) in xs.iter().zip(preds.iter()) {
         let Some(m) = pp.metrics.iter().find(|m| m.metric == metric) else {
@@ -163,8 +210,28 @@ pub fn trend(
             })
         })
         .collect();
-    base.remove(param);
+    if kind == TrendKind::MainEffect {
+        curve = super::effects::main_effect(fit, spec, pi, steps, seed);
+        base.clear();
+    } else {
+        base.remove(param);
+    }
+    let unsure = super::effects::unsure_stretches(&curve);
+    if !unsure.is_empty() {
+        warnings.push(format!(
+            "the surrogate of {metric} knows little over part of the range (shaded in the plot): add points there before trusting the curve"
+        ));
+    }
     Ok(Trend {
+        kind,
+        log_scale: p.scale == Scale::Log,
+        target: spec
+            .targets
+            .iter()
+            .find(|t| t.metric == metric)
+            .map(|t| (t.value, t.sd)),
+        unsure,
+        warnings,
         param: param.to_string(),
         param_unit: p.unit.clone(),
         metric: metric.to_string(),

@@ -15,6 +15,7 @@ mod fit;
 mod gradient;
 mod kernel;
 mod linalg;
+mod paths;
 
 pub use fit::{bounds, FitOptions};
 pub use gradient::{IntegratedVariance, PredictionGradient};
