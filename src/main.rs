@@ -44,6 +44,8 @@ struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Run the whole job on an invented example, with no setup, and write its report.
+    Demo(cmd::demo::DemoArgs),
     /// Write a commented starter sweep file.
     Init(cmd::init::InitArgs),
     /// Validate a sweep file and show its parameters (and, with --design, the initial design).
@@ -66,6 +68,8 @@ enum Command {
     Trend(cmd::trend::TrendArgs),
     /// Which constants matter for each metric (Sobol indices on the surrogates).
     Sensitivity(cmd::sensitivity::SensitivityArgs),
+    /// Write one HTML page about a sweep, with its plots, to show the lab.
+    Report(cmd::report::ReportArgs),
     /// Find the constants that match the measured targets, and what the targets pin down.
     Calibrate(cmd::calibrate::CalibrateArgs),
     /// Write every evaluation in a sweep database as CSV or JSON lines.
@@ -89,6 +93,7 @@ fn main() -> ExitCode {
         return ExitCode::from(2);
     }
     let outcome = match cli.command {
+        Command::Demo(a) => cmd::demo::run(a),
         Command::Init(a) => cmd::init::run(a),
         Command::Check(a) => cmd::check::run(a),
         Command::Simulate(a) => cmd::simulate::run(a),
@@ -101,6 +106,7 @@ fn main() -> ExitCode {
         Command::Trend(a) => cmd::trend::run(a),
         Command::Sensitivity(a) => cmd::sensitivity::run(a),
         Command::Calibrate(a) => cmd::calibrate::run(a),
+        Command::Report(a) => cmd::report::run(a),
         Command::Export(a) => cmd::export::run(a),
         Command::Guard(a) => cmd::guard::run(a),
     };

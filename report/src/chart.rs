@@ -90,6 +90,22 @@ pub fn fonts() {
     });
 }
 
+/// `fig` as SVG text.
+pub fn svg_string(fig: &impl Figure) -> Result<String, ChartError> {
+    fonts();
+    let mut text = String::new();
+    let err = |reason: String| ChartError::Draw {
+        path: "(in memory)".into(),
+        reason,
+    };
+    {
+        let root = SVGBackend::with_string(&mut text, fig.size()).into_drawing_area();
+        fig.draw(&root).map_err(err)?;
+        root.present().map_err(|e| err(e.to_string()))?;
+    }
+    Ok(text)
+}
+
 /// Writes `fig` to `path` as SVG or PNG (by the extension).
 pub fn save(fig: &impl Figure, path: &Path) -> Result<(), ChartError> {
     let format = format_of(path)?;

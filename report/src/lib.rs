@@ -5,3 +5,4 @@
 //! that carry units, and it decides nothing about what they mean.
 
 pub mod chart;
+pub mod html;

@@ -6,11 +6,13 @@ use anyhow::Context;
 pub mod calibrate;
 pub mod check;
 pub mod check_fit;
+pub mod demo;
 pub mod export;
 pub mod guard;
 pub mod init;
 pub mod net;
 pub mod predict;
+pub mod report;
 pub mod run;
 pub mod sensitivity;
 pub mod serve;
@@ -22,6 +24,7 @@ pub mod worker;
 /// Examples shown at the end of `tessera --help`.
 pub const EXAMPLES: &str = "\
 Examples:
+  tessera demo                         an invented example end to end, with its report
   tessera init                         write sweep.toml for the built-in tiling model
   tessera check sweep.toml --design    validate it and print the initial design as CSV
   tessera simulate tiling --json       one run of the built-in model

@@ -29,6 +29,8 @@ Examples:
       one point: every parameter as NAME=VALUE, in the sweep file's units
   tessera predict --db sweep.db --points grid.csv
       many points: a CSV file whose header names the parameters
+  tessera predict --db sweep.db --points grid.csv --out predicted.csv
+      the same as CSV, one row per point (or --format csv for standard output)
   tessera predict --db sweep.db height_sd=5 exclusion=8 density=30 --json
       a JSON array, one object per point: {\"territory_cv\": {\"mean\": .., \"sd\": ..}}
   tessera predict --coordinator http://10.0.0.5:7300 --token-file lab.token \\
@@ -54,8 +56,74 @@ pub struct PredictArgs {
     #[arg(long, value_name = "FILE.csv")]
     pub points: Option<PathBuf>,
     /// Print one JSON array (one object per point, keyed by metric name) instead of tables.
-    #[arg(long)]
+    #[arg(long, conflicts_with = "format")]
     pub json: bool,
+    /// Output format: a table per point, or CSV (one row per point).
+    #[arg(long, value_enum, default_value = "table")]
+    pub format: Format,
+    /// Write the predictions to this CSV file (one row per point: the
+    /// parameters, then mean, sd and 95% interval of every metric, then the
+    /// warnings) and print only a summary.
+    #[arg(long, value_name = "FILE.csv")]
+    pub out: Option<PathBuf>,
+}
+
+/// How `tessera predict` prints its answer.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum)]
+pub enum Format {
+    /// A table per point.
+    Table,
+    /// One CSV row per point.
+    Csv,
+}
+
+/// Writes the predictions as CSV: parameters (sweep order when known),
+/// then `METRIC_mean`, `METRIC_sd`, `METRIC_lower95`, `METRIC_upper95` per
+/// metric, then `warnings` (joined by "; ").
+fn write_csv<W: std::io::Write>(
+    w: W,
+    preds: &[PointPrediction],
+    spec: Option<&Spec>,
+) -> anyhow::Result<()> {
+    let mut out = csv::Writer::from_writer(w);
+    let Some(first) = preds.first() else {
+        return Ok(());
+    };
+    let mut params: Vec<String> = first.point.keys().cloned().collect();
+    if let Some(spec) = spec {
+        params.sort_by_key(|name| spec.params.iter().position(|q| &q.name == name));
+    }
+    let metrics: Vec<String> = first.metrics.iter().map(|m| m.metric.clone()).collect();
+    let mut header = params.clone();
+    for m in &metrics {
+        for part in ["mean", "sd", "lower95", "upper95"] {
+            header.push(format!("{m}_{part}"));
+        }
+    }
+    header.push("warnings".to_string());
+    out.write_record(&header)?;
+    let exact = tessera_models::text::exact;
+    for p in preds {
+        let mut row: Vec<String> = params
+            .iter()
+            .map(|n| p.point.get(n).map_or(String::new(), |v| exact(*v)))
+            .collect();
+        for m in &metrics {
+            match p.metrics.iter().find(|x| &x.metric == m) {
+                Some(x) => row.extend([
+                    exact(x.mean),
+                    exact(x.sd),
+                    exact(x.lower95),
+                    exact(x.upper95),
+                ]),
+                None => row.extend(std::iter::repeat_n(String::new(), 4)),
+            }
+        }
+        row.push(p.warnings.join("; "));
+        out.write_record(&row)?;
+    }
+    out.flush()?;
+    Ok(())
 }
 
 /// The point given as NAME=VALUE arguments (`None` if there are none).
@@ -303,7 +371,33 @@ pub fn run(args: PredictArgs) -> anyhow::Result<ExitCode> {
         }
         (None, None) => bail!("give --db FILE or --coordinator URL"),
     };
-    if args.json {
+    if let Some(path) = &args.out {
+        let file = std::fs::File::create(path)
+            .with_context(|| format!("cannot write {}", path.display()))?;
+        write_csv(std::io::BufWriter::new(file), &preds, spec.as_ref())
+            .with_context(|| format!("cannot write {}", path.display()))?;
+        let warned = preds.iter().filter(|p| !p.warnings.is_empty()).count();
+        println!(
+            "{} point(s) predicted; written to {} (one row per point: mean, sd and 95% interval of each metric)",
+            preds.len(),
+            path.display()
+        );
+        if warned > 0 {
+            eprintln!(
+                "warning: {warned} of {} points have warnings (extrapolation or little knowledge): see the warnings column",
+                preds.len()
+            );
+        }
+    } else if args.format == Format::Csv {
+        write_csv(std::io::stdout().lock(), &preds, spec.as_ref())?;
+        let warned = preds.iter().filter(|p| !p.warnings.is_empty()).count();
+        if warned > 0 {
+            eprintln!(
+                "warning: {warned} of {} points have warnings: see the warnings column",
+                preds.len()
+            );
+        }
+    } else if args.json {
         println!("{}", serde_json::to_string_pretty(&to_json(&preds))?);
         for (k, p) in preds.iter().enumerate() {
             warn(k, p);
