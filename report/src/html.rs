@@ -37,8 +37,9 @@ pub struct FigureRef {
     pub caption: String,
     /// Alternative text.
     pub alt: String,
-    /// The image as a `data:` URI.
-    pub src: String,
+    /// The image as a `data:` URI (made by [`FigureRef::svg_text`]: base64,
+    /// so it holds no quote and is written into the page unescaped).
+    src: String,
     /// Name of the PNG copy written beside the page, if any.
     pub png: Option<String>,
 }

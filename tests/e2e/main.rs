@@ -5,6 +5,7 @@
 //! temporary directory and cleans them up.
 
 mod adaptive;
+mod answers;
 mod calibration;
 mod deploy_files;
 mod distributed;
@@ -16,6 +17,7 @@ mod local_run;
 mod one_writer;
 mod partition;
 mod predict_check_fit;
+mod report;
 mod simulate;
 mod tidy;
 mod tls_health;

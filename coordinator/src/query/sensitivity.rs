@@ -6,14 +6,21 @@
 //!
 //! Point estimates use the surrogate's mean (its median on the metric's own
 //! scale for a bounded metric) on a pick-and-freeze sample of
-//! [`BASE_ROWS`] rows (`tessera_surrogate::sobol`). The interval of each
-//! index adds two independent errors in quadrature:
+//! [`BASE_ROWS`] rows (`tessera_surrogate::sobol`), with the total
+//! variance in their denominators taken as the GP's posterior expectation
+//! (the variance of the mean plus what the surrogate is unsure of, from
+//! sample paths; Oakley & O'Hagan 2004 give the same correction in closed
+//! form). The interval of each index adds two independent errors in
+//! quadrature:
 //!
 //! - Monte Carlo: the sd of the index over bootstrap resamples of the rows;
 //! - surrogate: the sd of the index recomputed on joint posterior sample
 //!   paths of the GP over a smaller sample, as Marrel, Iooss, Laurent &
-//!   Roustant (2009, Reliab. Eng. Syst. Saf. 94:742-751) do; the rows are
-//!   fixed across paths, so this spread is the surrogate's alone.
+//!   Roustant (2009, Reliab. Eng. Syst. Saf. 94:742-751) do (the rows are
+//!   fixed across paths, so this spread is the surrogate's alone), and the
+//!   difference between the paths' average index and the index of the
+//!   surrogate's mean on those rows: two estimates of one index that differ
+//!   by how much the surrogate smooths what it is unsure of (our choice).
 
 use super::QueryError;
 use crate::fitter::MetricFit;
@@ -78,13 +85,22 @@ impl MetricSensitivity {
     }
 }
 
-fn index(value: f64, mc: &[f64], paths: &[f64]) -> Index {
+/// An index with its interval: `smoothing` is the difference between the
+/// posterior mean of the index (over the paths) and the index of the
+/// surrogate's mean on the same rows, counted as surrogate error.
+fn index(value: f64, mc: &[f64], paths: &[f64], smoothing: f64) -> Index {
     let mc_sd = stats::mean_sd(mc).1;
-    let surrogate_sd = if paths.len() >= 2 {
+    let spread = if paths.len() >= 2 {
         stats::mean_sd(paths).1
     } else {
         0.0
     };
+    let smoothing = if smoothing.is_finite() {
+        smoothing
+    } else {
+        0.0
+    };
+    let surrogate_sd = (spread.powi(2) + smoothing.powi(2)).sqrt();
     let sd = (mc_sd.powi(2) + surrogate_sd.powi(2)).sqrt();
     let half = 1.959_963_984_540_054 * if sd.is_finite() { sd } else { 0.0 };
     // An index is a share of variance: estimates outside [0, 1] (Monte
@@ -108,6 +124,14 @@ pub fn sensitivity_of(fit: &MetricFit, spec: &Spec, seed: u64) -> MetricSensitiv
     // Surrogate paths on a smaller sample.
     let small_n = (PATH_POINTS / (d + 2)).clamp(16, 512);
     let small = sobol::design(small_n, d, seed ^ 0x5a11);
+    // The surrogate's mean is smoother than the function it stands for: its
+    // variance over the box misses the part the surrogate is unsure of. The
+    // paths carry that part; the ratio of their variance to the mean's, on
+    // the same small sample, scales the variance in the indices'
+    // denominators (numerators of first-order indices average the
+    // uncertainty out, so they keep the mean's).
+    let f_small = fit.predict_median(&small.points);
+    let mean_small = sobol::indices(&f_small, small.n, d);
     let paths: Vec<sobol::Indices> = fit
         .gp
         .sample_paths(&small.points, PATHS, seed ^ 0x9a7e)
@@ -120,6 +144,14 @@ pub fn sensitivity_of(fit: &MetricFit, spec: &Spec, seed: u64) -> MetricSensitiv
             sobol::indices(&natural, small.n, d)
         })
         .collect();
+    // The variance the surrogate's mean misses: the paths' average variance
+    // over the small sample against the mean's on the same rows.
+    let path_var = paths.iter().map(|p| p.variance).sum::<f64>() / paths.len().max(1) as f64;
+    let inflation = if mean_small.variance > 0.0 && path_var.is_finite() && !paths.is_empty() {
+        (path_var / mean_small.variance).max(1.0)
+    } else {
+        1.0
+    };
     let params = spec
         .params
         .iter()
@@ -129,11 +161,16 @@ pub fn sensitivity_of(fit: &MetricFit, spec: &Spec, seed: u64) -> MetricSensitiv
             let mc_total: Vec<f64> = boots.iter().map(|b| b.total[i]).collect();
             let gp_first: Vec<f64> = paths.iter().map(|b| b.first[i]).collect();
             let gp_total: Vec<f64> = paths.iter().map(|b| b.total[i]).collect();
+            let first = est.first[i] / inflation;
+            let total = est.total[i] / inflation;
+            let avg = |v: &[f64]| v.iter().sum::<f64>() / v.len().max(1) as f64;
+            let smooth_first = avg(&gp_first) - mean_small.first[i] / inflation;
+            let smooth_total = avg(&gp_total) - mean_small.total[i] / inflation;
             (
                 p.name.clone(),
                 ParamIndices {
-                    first: index(est.first[i], &mc_first, &gp_first),
-                    total: index(est.total[i], &mc_total, &gp_total),
+                    first: index(first, &mc_first, &gp_first, smooth_first),
+                    total: index(total, &mc_total, &gp_total, smooth_total),
                 },
             )
         })
