@@ -486,3 +486,45 @@ fn an_idle_worker_stops_at_once_on_sigterm() {
         started.elapsed()
     );
 }
+
+/// `--idle-exit`: a worker offered no work (another worker holds every run)
+/// stops by itself, exit 0, while the sweep goes on; the busy worker is not
+/// affected and the sweep completes once each.
+#[test]
+fn an_idle_worker_exits_after_its_idle_period() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let spec = branin_spec(dir, 2, 1, 4000);
+    let port = free_port();
+    let coord = serve(dir, &spec, port, &[]);
+    let mut busy = worker(dir, port, "busy", 2, &[]);
+    // Give the busy worker both runs first (it has joined and asked for work).
+    let start = std::time::Instant::now();
+    while !busy.output().contains("joined") {
+        assert!(
+            start.elapsed() < Duration::from_secs(20),
+            "the busy worker did not join:\n{}\n{}",
+            busy.output(),
+            coord.output()
+        );
+        std::thread::sleep(Duration::from_millis(100));
+    }
+    std::thread::sleep(Duration::from_millis(800));
+    let mut idle = worker(dir, port, "idle", 2, &["--idle-exit", "1s"]);
+    let status = idle
+        .wait_exit(Duration::from_secs(15))
+        .unwrap_or_else(|| panic!("the idle worker did not stop:\n{}", idle.output()));
+    assert!(
+        status.success(),
+        "idle exit is a normal exit:\n{}",
+        idle.output()
+    );
+    assert!(idle.output().contains("idle"), "{}", idle.output());
+    assert!(
+        busy.child.try_wait().ok().flatten().is_none(),
+        "the busy worker is still working"
+    );
+    let st = busy.wait_exit(Duration::from_secs(30));
+    assert!(st.is_some_and(|s| s.success()), "{}", busy.output());
+    assert_each_once_all_ok(&dir.join("sweep.db"), 2);
+}

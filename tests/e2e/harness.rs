@@ -255,3 +255,10 @@ minimize = "value"
     .expect("write spec");
     path
 }
+
+/// Whether checks that need outside tools (a browser, an HTML parser,
+/// Slurm, systemd-analyze, schema validators) must run rather than be
+/// skipped: `.ci/run` sets `TESSERA_REQUIRE_TOOLS=1` after installing them.
+pub fn tools_required() -> bool {
+    std::env::var_os("TESSERA_REQUIRE_TOOLS").is_some()
+}

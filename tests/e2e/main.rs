@@ -19,6 +19,7 @@ mod partition;
 mod predict_check_fit;
 mod report;
 mod simulate;
+mod slurm;
 mod tidy;
 mod tls_health;
 mod trend_plot;

@@ -5,7 +5,7 @@
 //! in the target directory.
 //!
 //! The HTML parser and the browser are outside tools: `.ci/run` installs
-//! them and sets `TESSERA_REQUIRE_BROWSER=1`, so there their absence fails
+//! them and sets `TESSERA_REQUIRE_TOOLS=1`, so there their absence fails
 //! the test. Elsewhere the checks that need them are skipped with a message.
 
 use crate::harness::*;
@@ -13,7 +13,7 @@ use std::path::Path;
 use std::process::Command;
 
 fn required() -> bool {
-    std::env::var_os("TESSERA_REQUIRE_BROWSER").is_some()
+    tools_required()
 }
 
 fn python() -> String {
@@ -62,7 +62,7 @@ fn validate_html(index: &Path) {
     if !have {
         assert!(
             !required(),
-            "html5lib is required (TESSERA_REQUIRE_BROWSER) but {} cannot import it",
+            "html5lib is required (TESSERA_REQUIRE_TOOLS) but {} cannot import it",
             python()
         );
         eprintln!(
@@ -87,7 +87,7 @@ fn render_in_browser(index: &Path, shot: &Path) {
     let Some(browser) = chromium() else {
         assert!(
             !required(),
-            "Chromium is required (TESSERA_REQUIRE_BROWSER) but not found"
+            "Chromium is required (TESSERA_REQUIRE_TOOLS) but not found"
         );
         eprintln!("skipped: loading the report in Chromium (not installed); .ci/run installs it");
         return;
