@@ -238,10 +238,11 @@ pub fn summary(spec: &Spec, file: &str) -> String {
         let _ = writeln!(
             s,
             "targets{}:",
-            if spec.objective.is_none() {
-                " (calibration: minimise the standardised discrepancy)"
-            } else {
-                " (used to mark the calibrated region)"
+            match (spec.strategy, spec.objective.is_some()) {
+                (tessera_coordinator::spec::Strategy::Calibrate, _) =>
+                    " (calibration waves narrow down the constants that match them; then tessera calibrate)",
+                (_, false) => " (the search minimises the standardised discrepancy; tessera calibrate maps the matching constants)",
+                (_, true) => " (tessera calibrate maps the constants that match them)",
             }
         );
         let mut rows = Vec::new();
@@ -254,6 +255,19 @@ pub fn summary(spec: &Spec, file: &str) -> String {
                     with_unit(tessera_models::text::exact(t.value), unit)
                 ),
                 format!("sd {}", with_unit(tessera_models::text::exact(t.sd), unit)),
+                if t.discrepancy_sd > 0.0 {
+                    format!(
+                        "model discrepancy sd {}",
+                        with_unit(tessera_models::text::exact(t.discrepancy_sd), unit)
+                    )
+                } else {
+                    String::new()
+                },
+                if t.weight == 1.0 {
+                    String::new()
+                } else {
+                    format!("weight {}", tessera_models::text::exact(t.weight))
+                },
             ]);
         }
         s.push_str(&table(&rows));
@@ -272,14 +286,28 @@ fn bracket(unit: &str) -> String {
 /// What `check` says about the model beyond the sweep file's own rules: a
 /// model that is neither built in nor given a command.
 pub fn model_warnings(spec: &Spec) -> Vec<String> {
-    if models::find(&spec.model.name).is_some() || spec.model.command.is_some() {
+    let builtin = models::find(&spec.model.name).is_some() && spec.model.command.is_none();
+    if builtin {
         return Vec::new();
     }
-    let names: Vec<&str> = models::catalogue().iter().map(|m| m.name).collect();
-    vec![format!(
-        "model {:?} is not built in ({}); workers must be started with --command {}=\"...\" for it",
-        spec.model.name,
-        names.join(", "),
-        spec.model.name
-    )]
+    let mut out = Vec::new();
+    if spec.model.command.is_none() {
+        let names: Vec<&str> = models::catalogue().iter().map(|m| m.name).collect();
+        out.push(format!(
+            "model {:?} is not built in ({}); workers must be started with --command {}=\"...\" for it",
+            spec.model.name,
+            names.join(", "),
+            spec.model.name
+        ));
+    }
+    // The metrics of a command are known only once it has run.
+    let needed = spec.metrics_needed();
+    if !needed.is_empty() {
+        out.push(format!(
+            "the metrics of {:?} cannot be checked before it runs: it must report {}; a run that does not fails with a message naming the missing metric (try one run with tessera simulate first)",
+            spec.model.name,
+            needed.join(", ")
+        ));
+    }
+    out
 }

@@ -475,7 +475,7 @@ impl Spec {
     /// The number the planner minimises, from one run's (or one point's mean) metrics.
     ///
     /// With an objective: the metric itself (minimize) or its negative
-    /// (maximize); targets are then only used to mark the calibrated region.
+    /// (maximize); targets then serve `tessera calibrate` only.
     /// With targets only: the standardised discrepancy
     /// `sum ((m - value) / sd)^2` over the targets (the squared form of the
     /// implausibility of Craig et al. 1997). `None` if a needed metric is
