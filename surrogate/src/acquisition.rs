@@ -468,8 +468,21 @@ pub fn propose(
                 .unwrap_or_else(|| snap(cands[idx[0]].clone()))
         };
         let mut effective = strategy;
-        let mut chosen = pick(strategy, &mut rng);
-        if strategy == Strategy::Improve {
+        let thompson = strategy == Strategy::Improve && q >= 2 && out.len() + 1 == q;
+        let mut chosen = if thompson {
+            thompson_pick(
+                &model,
+                &cands,
+                &p_fail,
+                &|p: &[f64]| free(p, &blocked),
+                rng.random(),
+            )
+            .map(&snap)
+            .unwrap_or_else(|| pick(strategy, &mut rng))
+        } else {
+            pick(strategy, &mut rng)
+        };
+        if strategy == Strategy::Improve && !thompson {
             // Expected improvement that comes from uncertainty alone (the
             // predicted mean far above the best) chases the corners of the
             // box, where the sd is largest. Improve near the best instead if
@@ -532,6 +545,47 @@ pub fn propose(
     }
     out
 }
+
+/// Thompson sampling (Thompson 1933; for batches of GP optimisation,
+/// Kandasamy et al. 2018): the minimiser of one joint posterior sample path
+/// over at most [`THOMPSON_CANDIDATES`] free candidates, weighted by the
+/// probability that a run succeeds (a failing point counts as no
+/// improvement). One point of each batch is chosen this way, so that the
+/// batch also tries where the minimum may be, in proportion to the
+/// surrogate's belief, rather than only where expected improvement peaks.
+fn thompson_pick(
+    model: &Gp,
+    cands: &[Vec<f64>],
+    p_fail: &[f64],
+    free: &dyn Fn(&[f64]) -> bool,
+    seed: u64,
+) -> Option<Vec<f64>> {
+    let idx: Vec<usize> = (0..cands.len())
+        .filter(|&i| free(&cands[i]))
+        .take(THOMPSON_CANDIDATES)
+        .collect();
+    if idx.is_empty() {
+        return None;
+    }
+    let pts: Vec<Vec<f64>> = idx.iter().map(|&i| cands[i].clone()).collect();
+    let path = model.sample_paths(&pts, 1, seed).pop()?;
+    let best_seen = model
+        .predict_mean(&model.observed_x())
+        .into_iter()
+        .fold(f64::INFINITY, f64::min);
+    idx.iter()
+        .zip(&path)
+        .map(|(&i, &v)| {
+            // A likely failure is scored at the best value seen (no gain).
+            let f = p_fail.get(i).copied().unwrap_or(0.0);
+            (i, f * best_seen + (1.0 - f) * v)
+        })
+        .min_by(|a, b| a.1.total_cmp(&b.1))
+        .map(|(i, _)| cands[i].clone())
+}
+
+/// Most candidates in one Thompson sample (the joint draw costs O(m^3)).
+const THOMPSON_CANDIDATES: usize = 1000;
 
 /// A large batch from one scoring of the candidates, so that hundreds of
 /// points take about a second: for [`Strategy::Improve`], expected

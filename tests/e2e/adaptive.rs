@@ -49,6 +49,37 @@ fn branin_minimum_is_found_within_forty_runs() {
     assert!(close >= 4, "best values {found:?}");
 }
 
+/// Published Hartmann-6 minimum (Surjanovic & Bingham VLSE; Dixon & Szegő 1978).
+const HARTMANN6_MIN: f64 = -3.322_368_011_415_51;
+
+/// Hartmann-6 through `tessera run`, budget 120 with 20 initial points
+/// (reproducible batches of 4): the median best value of seeds 1 to 3 is
+/// within 1% of the published minimum. (Over seeds 1 to 12, 4 of 12 reach
+/// it; the others stop in the local minimum near -3.20: docs/benchmarks.md.)
+#[test]
+fn hartmann6_median_of_three_seeds_is_within_one_percent() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let mut found = Vec::new();
+    for seed in 1..=3 {
+        let p = dir.join(format!("h6-{seed}.toml"));
+        let mut text = format!("name = \"h6\"\nseed = {seed}\nbudget = 120\ninitial = 20\n[model]\nname = \"hartmann6\"\n");
+        for k in 1..=6 {
+            text.push_str(&format!("[params.x{k}]\nrange = [0.0, 1.0]\n"));
+        }
+        text.push_str("[objective]\nminimize = \"value\"\n");
+        std::fs::write(&p, text).expect("write");
+        run_ok(dir, &["run", p.to_str().expect("path"), "--workers", "2"]);
+        found.push(best(&p.with_extension("db")));
+    }
+    found.sort_by(f64::total_cmp);
+    let median = found[1];
+    assert!(
+        median <= HARTMANN6_MIN * 0.99,
+        "median {median} of {found:?} is not within 1% of {HARTMANN6_MIN}"
+    );
+}
+
 /// The same sweep file gives the same points on one worker and on three.
 #[test]
 fn a_reproducible_sweep_gives_the_same_points_on_any_number_of_workers() {
