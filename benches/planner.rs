@@ -213,7 +213,11 @@ fn optima() {
         let seeds: Vec<u64> = (1..=10).collect();
         let mut cells = Vec::new();
         let mut seq_median = case.cap as f64;
-        for q in [1usize, 4, 8] {
+        let qs: Vec<usize> = std::env::var("TESSERA_BENCH_Q")
+            .ok()
+            .map(|v| v.split(',').filter_map(|x| x.parse().ok()).collect())
+            .unwrap_or_else(|| vec![1, 4, 8]);
+        for &q in &qs {
             let runs: Vec<Option<usize>> = seeds.iter().map(|&s| search(&case, s, q)).collect();
             let reached = runs.iter().filter(|r| r.is_some()).count();
             // Seeds that never reach count as one more than the cap.
@@ -237,6 +241,7 @@ fn optima() {
                 runs.iter().map(|r| show(*r, case.cap)).collect::<Vec<_>>()
             );
         }
+        cells.resize(3, "-".into());
         let rcap = 5000;
         let rs: Vec<f64> = seeds
             .iter()

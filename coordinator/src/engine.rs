@@ -307,6 +307,13 @@ impl Engine {
         Ok((grants, finished))
     }
 
+    /// Whether new points are being planned, or will be as soon as the
+    /// planner task wakes: a worker offered nothing should ask again soon.
+    pub fn plan_under_way(&self) -> bool {
+        let s = lock(&self.sched);
+        s.is_planning() || s.wants_plan().is_some()
+    }
+
     /// Renews leases; returns those the worker lost.
     pub fn renew(&self, worker_id: &str, lease_ids: &[String]) -> Result<Vec<String>, EngineError> {
         Ok(lock(&self.sched).renew(worker_id, lease_ids, Instant::now())?)

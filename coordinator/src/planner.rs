@@ -14,7 +14,13 @@
 //! by the probability that a run succeeds once runs have failed (a
 //! surrogate of the failure rate, see [`fitter::FAILURE_RATE`]), with
 //! points that only failed counted as the worst value seen (for the search
-//! only); see `tessera_surrogate::acquisition`. With too little data, or if the fit
+//! only); see `tessera_surrogate::acquisition`. For `improve`, points take
+//! turns in three roles (our choice, measured in docs/benchmarks.md): one
+//! point at a time, batches numbered 1, 2, 3, 4 go to the surrogate's own
+//! minimum, a Thompson sample, expected improvement, a Thompson sample, and
+//! so on; a batch of three or more starts at the surrogate's minimum (a
+//! batch of two on odd batches), ends with a Thompson sample and fills the
+//! rest by expected improvement. With too little data, or if the fit
 //! fails, the planner proposes seeded uniform points and says why.
 
 use crate::calibration;
@@ -188,6 +194,13 @@ impl Planner {
             pending: &running,
             failure: failure.as_ref().map(|f| &f.gp),
             snap: Some(&snap),
+            // The turns of the roles (see the module docs).
+            thompson: q == 1 && batch.is_multiple_of(2),
+            exploit: if q == 1 {
+                batch % 4 == 1
+            } else {
+                q >= 3 || batch % 2 == 1
+            },
         };
         let strategy = match spec.strategy {
             Strategy::Explore => acquisition::Strategy::Explore,

@@ -722,6 +722,11 @@ impl Scheduler {
         Some(q.clamp(1, left))
     }
 
+    /// Whether a planning round is under way.
+    pub fn is_planning(&self) -> bool {
+        self.planning
+    }
+
     /// Marks a plan as under way (or finished).
     pub fn set_planning(&mut self, on: bool) {
         self.planning = on;

@@ -12,6 +12,12 @@ use tessera_proto::v1::coordinator_server::Coordinator;
 use tessera_proto::PROTOCOL_VERSION;
 use tonic::{Request, Response, Status};
 
+/// How soon a worker offered no work asks again while points are being
+/// planned, and otherwise (our choices: a plan lands within tens of
+/// milliseconds of the retry; idle polling stays cheap).
+const RETRY_WHILE_PLANNING_MS: u64 = 25;
+const RETRY_IDLE_MS: u64 = 250;
+
 /// The gRPC service.
 #[derive(Clone)]
 pub struct CoordinatorService {
@@ -127,8 +133,17 @@ impl Coordinator for CoordinatorService {
                 );
             }
         }
+        // Nothing now: ask again soon if points are being planned (so slots
+        // do not stay idle after a plan lands), otherwise a while later.
+        let retry_after_ms = if !leases.is_empty() {
+            0
+        } else if !finished && self.engine.plan_under_way() {
+            RETRY_WHILE_PLANNING_MS
+        } else {
+            RETRY_IDLE_MS
+        };
         Ok(Response::new(pb::WorkReply {
-            retry_after_ms: if leases.is_empty() { 250 } else { 0 },
+            retry_after_ms,
             leases,
             finished,
         }))
