@@ -5,6 +5,10 @@
 //!
 //! Run: `cargo bench --bench planner -- [optima|latency|mapping|all]`.
 //!
+//! Optional: a function name after the group runs that function only;
+//! `TESSERA_BENCH_Q=1,4` chooses the batch sizes and `TESSERA_BENCH_INITIAL`
+//! the initial design size (default 5 per input).
+//!
 //! - optima: evaluations until the best value is within 1% (of its absolute
 //!   value) of the published minimum (Surjanovic & Bingham VLSE; Dixon &
 //!   Szegő 1978), median over 10 seeds, sequential and in batches of 4 and 8,
@@ -121,7 +125,7 @@ fn value(spec: &Spec, x: &[f64], seed: u64) -> BTreeMap<String, f64> {
 /// Evaluations of the adaptive search until the target (None: not within the cap).
 fn search(case: &Case, seed: u64, q: usize) -> Option<usize> {
     let d = case.ranges.len();
-    let initial = 5 * d;
+    let initial = initial_points(d);
     let spec = spec_of(&case_text(case, case.cap, initial, seed, "improve"));
     let target = case.minimum + 0.01 * case.minimum.abs();
     let mut results: Vec<PointResults> = Vec::new();
@@ -188,6 +192,14 @@ fn lhs_reaches(case: &Case, seed: u64, n: usize) -> bool {
         .any(|u| value(&spec, &spec.to_natural(u), 0)["value"] <= target)
 }
 
+/// Initial design size: 5 per input unless `TESSERA_BENCH_INITIAL` says.
+fn initial_points(d: usize) -> usize {
+    std::env::var("TESSERA_BENCH_INITIAL")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(5 * d)
+}
+
 fn median(mut v: Vec<f64>) -> f64 {
     v.sort_by(f64::total_cmp);
     let n = v.len();
@@ -203,8 +215,22 @@ fn show(v: Option<usize>, cap: usize) -> String {
 }
 
 fn optima() {
-    println!("| function | initial | sequential: median (seeds reaching) | batch 4 | batch 8 | random search: median | LHS of the sequential median's size: seeds reaching |");
-    println!("|---|---:|---:|---:|---:|---:|---:|");
+    let qs: Vec<usize> = std::env::var("TESSERA_BENCH_Q")
+        .ok()
+        .map(|v| v.split(',').filter_map(|x| x.parse().ok()).collect())
+        .unwrap_or_else(|| vec![1, 4, 8]);
+    let columns: Vec<String> = qs
+        .iter()
+        .map(|&q| match q {
+            1 => "sequential: median (seeds reaching)".to_string(),
+            _ => format!("batch {q}"),
+        })
+        .collect();
+    println!(
+        "| function | initial | {} | random search: median | LHS of the sequential median's size: seeds reaching |",
+        columns.join(" | ")
+    );
+    println!("|---|---:|{}---:|---:|", "---:|".repeat(qs.len()));
     let only = std::env::args().skip(2).find(|a| !a.starts_with("--"));
     for case in cases() {
         if only.as_deref().is_some_and(|o| o != case.name) {
@@ -213,10 +239,6 @@ fn optima() {
         let seeds: Vec<u64> = (1..=10).collect();
         let mut cells = Vec::new();
         let mut seq_median = case.cap as f64;
-        let qs: Vec<usize> = std::env::var("TESSERA_BENCH_Q")
-            .ok()
-            .map(|v| v.split(',').filter_map(|x| x.parse().ok()).collect())
-            .unwrap_or_else(|| vec![1, 4, 8]);
         for &q in &qs {
             let runs: Vec<Option<usize>> = seeds.iter().map(|&s| search(&case, s, q)).collect();
             let reached = runs.iter().filter(|r| r.is_some()).count();
@@ -241,7 +263,6 @@ fn optima() {
                 runs.iter().map(|r| show(*r, case.cap)).collect::<Vec<_>>()
             );
         }
-        cells.resize(3, "-".into());
         let rcap = 5000;
         let rs: Vec<f64> = seeds
             .iter()
@@ -251,17 +272,15 @@ fn optima() {
         let n = (seq_median.min(case.cap as f64)) as usize;
         let lhs_ok = seeds.iter().filter(|&&s| lhs_reaches(&case, s, n)).count();
         println!(
-            "| {}{} | {} | {} | {} | {} | {} | {lhs_ok}/10 (n = {n}) |",
+            "| {}{} | {} | {} | {} | {lhs_ok}/10 (n = {n}) |",
             case.name,
             if case.extra.is_empty() {
                 ""
             } else {
-                " (log scale)"
+                " (bounds = [0, inf] declared)"
             },
-            5 * case.ranges.len(),
-            cells[0],
-            cells[1],
-            cells[2],
+            initial_points(case.ranges.len()),
+            cells.join(" | "),
             if rm > rcap as f64 {
                 format!(">{rcap}")
             } else {

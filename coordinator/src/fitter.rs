@@ -78,6 +78,9 @@ pub struct MetricFit {
     pub transform: Transform,
     /// Bounds of the metric (`None`: open); predictions are kept inside.
     pub bounds: [Option<f64>; 2],
+    /// Whether the log scale was chosen from the data, not declared (see
+    /// `Spec::log_scale_from_data`).
+    pub log_from_data: bool,
 }
 
 impl MetricFit {
@@ -214,6 +217,8 @@ struct Diagnostics {
     transform: Transform,
     #[serde(default)]
     bounds: [Option<f64>; 2],
+    #[serde(default)]
+    log_from_data: bool,
 }
 
 fn kernel_name(k: KernelKind) -> &'static str {
@@ -239,6 +244,7 @@ impl MetricFit {
             log_marginal_likelihood: self.gp.log_marginal_likelihood(),
             transform: self.transform,
             bounds: self.bounds,
+            log_from_data: self.log_from_data,
         })
         .map_err(|e| {
             FitError::Internal(format!(
@@ -287,6 +293,7 @@ impl MetricFit {
             sampled_box: d.sampled_box,
             transform: d.transform,
             bounds: d.bounds,
+            log_from_data: d.log_from_data,
         })
     }
 }
@@ -312,6 +319,8 @@ pub struct FitJob {
     pub transform: Transform,
     /// Bounds of the metric.
     pub bounds: [Option<f64>; 2],
+    /// Whether the log scale was chosen from the data.
+    pub log_from_data: bool,
 }
 
 /// Per-point sample of one quantity: (point index, unit-cube input, replicate values).
@@ -491,11 +500,15 @@ pub fn jobs_from_results(spec: &Spec, results: &[PointResults], seed: u64) -> Ve
                 tracing::info!(metric = %metric, points = s.len(), "too few points with results for a surrogate (need {MIN_POINTS})");
                 return None;
             }
-            let (transform, bounds) = if metric == FAILURE_RATE {
-                (Transform::Identity, [Some(0.0), Some(1.0)])
+            let (transform, bounds, log_from_data) = if metric == FAILURE_RATE {
+                (Transform::Identity, [Some(0.0), Some(1.0)], false)
             } else {
                 let all: Vec<f64> = s.iter().flat_map(|(_, _, v)| v.iter().copied()).collect();
-                (spec.transform_for(&metric, &all), spec.bounds_of(&metric))
+                (
+                    spec.transform_for(&metric, &all),
+                    spec.bounds_of(&metric),
+                    spec.log_scale_from_data(&metric, &all).is_some(),
+                )
             };
             if !transform.is_identity() {
                 for (_, _, v) in &mut s {
@@ -508,6 +521,7 @@ pub fn jobs_from_results(spec: &Spec, results: &[PointResults], seed: u64) -> Ve
             Some(FitJob {
                 transform,
                 bounds,
+                log_from_data,
                 unit: spec.metric_unit(&metric).to_string(),
                 seed: fit_seed(seed, &metric, n_results),
                 metric,
@@ -553,6 +567,7 @@ pub fn run_job_with(job: &FitJob, opts: &FitOptions) -> Option<MetricFit> {
     Some(MetricFit {
         transform: job.transform,
         bounds: job.bounds,
+        log_from_data: job.log_from_data,
         metric: job.metric.clone(),
         unit: job.unit.clone(),
         n_results: job.n_results,

@@ -23,6 +23,24 @@ use std::sync::OnceLock;
 /// bound; our choice).
 pub const SQUEEZE: f64 = 1e-3;
 
+/// Orders of magnitude from which a positive metric with no declared bounds
+/// is fitted on a log scale (`[metrics.NAME] transform = "auto"`; common
+/// practice, no source: Jones, Schonlau & Welch 1998 fitted such a
+/// function, Goldstein-Price, on a log scale).
+pub const LOG_SCALE_DECADES: f64 = 3.0;
+
+/// The orders of magnitude spanned by `observed` if every value is finite
+/// and positive and they span at least [`LOG_SCALE_DECADES`].
+pub fn positive_decades(observed: &[f64]) -> Option<f64> {
+    if observed.is_empty() || observed.iter().any(|v| !v.is_finite() || *v <= 0.0) {
+        return None;
+    }
+    let lo = observed.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = observed.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let decades = (hi / lo).log10();
+    (decades >= LOG_SCALE_DECADES).then_some(decades)
+}
+
 /// The 97.5% quantile of the standard normal distribution.
 const Z95: f64 = 1.959_963_984_540_054;
 

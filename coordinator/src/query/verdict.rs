@@ -106,6 +106,20 @@ pub fn check_fit(fits: &[MetricFit]) -> Vec<FitVerdict> {
     fits.iter().map(judge).collect()
 }
 
+/// How a metric name is written as a TOML key: bare if it can be, else
+/// quoted (a JSON string is a valid TOML basic string for these names).
+fn toml_key(name: &str) -> String {
+    if !name.is_empty()
+        && name
+            .chars()
+            .all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-')
+    {
+        name.to_string()
+    } else {
+        serde_json::to_string(name).unwrap_or_else(|_| format!("\"{name}\""))
+    }
+}
+
 fn judge(f: &MetricFit) -> FitVerdict {
     let l = &f.loo;
     let d = f.params.len().max(1) as u32;
@@ -153,6 +167,17 @@ fn judge(f: &MetricFit) -> FitVerdict {
         }
     }
     let y = f.gp.observed_y();
+    if f.log_from_data {
+        let natural: Vec<f64> = y.iter().map(|&v| f.transform.inverse(v)).collect();
+        let lo = natural.iter().copied().fold(f64::INFINITY, f64::min);
+        let hi = natural.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        notes.push(format!(
+            "fitted on a log scale because every value is positive and they span about {:.0} orders of magnitude, so predictions are never negative; if {} can be zero or negative, declare [metrics.{}] transform = \"none\" in the sweep file",
+            (hi / lo).log10(),
+            f.metric,
+            toml_key(&f.metric)
+        ));
+    }
     let n = y.len() as f64;
     let mean = y.iter().sum::<f64>() / n.max(1.0);
     let spread = y.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / (n - 1.0).max(1.0);

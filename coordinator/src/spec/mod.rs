@@ -553,18 +553,39 @@ impl Spec {
             .map_or([None, None], |b| [b.lo, b.hi])
     }
 
-    /// The transform a metric's surrogate is fitted with, given the values
-    /// observed so far (see `tessera_surrogate::transform`).
-    pub fn transform_for(&self, metric: &str, observed: &[f64]) -> Transform {
-        let [lo, hi] = self.bounds_of(metric);
-        let fit = if self.objective.is_none() && metric == self.objective_label() {
+    /// The scale a metric's surrogate is fitted on, as declared.
+    fn fit_scale(&self, metric: &str) -> FitScale {
+        if self.objective.is_none() && metric == self.objective_label() {
             FitScale::Auto
         } else {
             self.metric_bounds
                 .get(metric)
                 .map_or(FitScale::Auto, |b| b.fit)
-        };
-        match fit {
+        }
+    }
+
+    /// For a metric given neither `bounds` nor `transform` (by the sweep
+    /// file or the model; an explicit `bounds = [-inf, inf]` says it may
+    /// take any value): the orders of magnitude its values span if they are
+    /// all positive and span at least `transform::LOG_SCALE_DECADES`, in
+    /// which case it is fitted on a log scale as if `bounds = [0, inf]`
+    /// were declared.
+    pub fn log_scale_from_data(&self, metric: &str, observed: &[f64]) -> Option<f64> {
+        if self.metric_bounds.contains_key(metric) || self.bounds_of(metric) != [None, None] {
+            return None;
+        }
+        tessera_surrogate::transform::positive_decades(observed)
+    }
+
+    /// The transform a metric's surrogate is fitted with, given the values
+    /// observed so far (see `tessera_surrogate::transform` and
+    /// [`Spec::log_scale_from_data`]).
+    pub fn transform_for(&self, metric: &str, observed: &[f64]) -> Transform {
+        let [lo, hi] = self.bounds_of(metric);
+        if self.log_scale_from_data(metric, observed).is_some() {
+            return Transform::for_bounds(Some(0.0), None, observed);
+        }
+        match self.fit_scale(metric) {
             FitScale::Auto => Transform::for_bounds(lo, hi, observed),
             FitScale::Natural => Transform::Identity,
             FitScale::Log => match (lo, hi) {
