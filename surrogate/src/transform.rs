@@ -8,6 +8,9 @@
 //! - One bound: the logarithm of the distance to the bound plus a small
 //!   shift (`SQUEEZE` times the largest observed distance), for the same
 //!   reason.
+//! - A metric with no bounds at all whose values are all positive and span
+//!   [`LOG_SCALE_DECADES`] orders of magnitude or more is fitted on the log
+//!   scale of `[0, inf]` (see [`positive_decades`]; the sweep decides).
 //!
 //! A Gaussian prediction `N(mu, s^2)` on the fitted scale is mapped back by
 //! its quantiles (the transform is monotone, so the 95% interval maps to the
