@@ -234,3 +234,32 @@ fn judge(f: &MetricFit) -> FitVerdict {
         notes,
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::toml_key;
+
+    /// Keys written into the note parse back to the same name as a table
+    /// key (TOML 1.0.0, "Keys": bare keys are ASCII letters, digits, `_`
+    /// and `-`; others are quoted basic strings with JSON-like escapes).
+    #[test]
+    fn metric_names_become_valid_toml_keys() {
+        for name in [
+            "value",
+            "height_sd",
+            "a b",
+            "x.y",
+            "q\"uote\\",
+            "tab\there",
+            "é",
+            "",
+        ] {
+            let text = format!("[metrics.{}]\ntransform = \"none\"\n", toml_key(name));
+            let table: toml::Table = text
+                .parse()
+                .unwrap_or_else(|e| panic!("{name:?} gave {text:?}: {e}"));
+            let metrics = table["metrics"].as_table().expect("a table");
+            assert!(metrics.contains_key(name), "{name:?} gave {text:?}");
+        }
+    }
+}
