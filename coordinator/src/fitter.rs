@@ -507,7 +507,7 @@ pub fn jobs_from_results(spec: &Spec, results: &[PointResults], seed: u64) -> Ve
                 (
                     spec.transform_for(&metric, &all),
                     spec.bounds_of(&metric),
-                    spec.log_scale_from_data(&metric, &all).is_some(),
+                    spec.log_scale_from_data(&metric, &all),
                 )
             };
             if !transform.is_identity() {

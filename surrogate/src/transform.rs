@@ -32,16 +32,15 @@ pub const SQUEEZE: f64 = 1e-3;
 /// function, Goldstein-Price, on a log scale).
 pub const LOG_SCALE_DECADES: f64 = 3.0;
 
-/// The orders of magnitude spanned by `observed` if every value is finite
-/// and positive and they span at least [`LOG_SCALE_DECADES`].
+/// The orders of magnitude spanned by `observed`, `log10(max / min)`, if
+/// every value is finite and positive (`None` otherwise or if empty).
 pub fn positive_decades(observed: &[f64]) -> Option<f64> {
     if observed.is_empty() || observed.iter().any(|v| !v.is_finite() || *v <= 0.0) {
         return None;
     }
     let lo = observed.iter().copied().fold(f64::INFINITY, f64::min);
     let hi = observed.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    let decades = (hi / lo).log10();
-    (decades >= LOG_SCALE_DECADES).then_some(decades)
+    Some((hi / lo).log10())
 }
 
 /// The 97.5% quantile of the standard normal distribution.

@@ -169,11 +169,9 @@ fn judge(f: &MetricFit) -> FitVerdict {
     let y = f.gp.observed_y();
     if f.log_from_data {
         let natural: Vec<f64> = y.iter().map(|&v| f.transform.inverse(v)).collect();
-        let lo = natural.iter().copied().fold(f64::INFINITY, f64::min);
-        let hi = natural.iter().copied().fold(f64::NEG_INFINITY, f64::max);
         notes.push(format!(
             "fitted on a log scale because every value is positive and they span about {:.0} orders of magnitude, so predictions are never negative; if {} can be zero or negative, declare [metrics.{}] transform = \"none\" in the sweep file",
-            (hi / lo).log10(),
+            tessera_surrogate::transform::positive_decades(&natural).unwrap_or(0.0),
             f.metric,
             toml_key(&f.metric)
         ));

@@ -566,15 +566,15 @@ impl Spec {
 
     /// For a metric given neither `bounds` nor `transform` (by the sweep
     /// file or the model; an explicit `bounds = [-inf, inf]` says it may
-    /// take any value): the orders of magnitude its values span if they are
-    /// all positive and span at least `transform::LOG_SCALE_DECADES`, in
-    /// which case it is fitted on a log scale as if `bounds = [0, inf]`
-    /// were declared.
-    pub fn log_scale_from_data(&self, metric: &str, observed: &[f64]) -> Option<f64> {
-        if self.metric_bounds.contains_key(metric) || self.bounds_of(metric) != [None, None] {
-            return None;
-        }
-        tessera_surrogate::transform::positive_decades(observed)
+    /// take any value): whether its values are all positive and span at
+    /// least `transform::LOG_SCALE_DECADES` orders of magnitude, in which
+    /// case it is fitted on a log scale as if `bounds = [0, inf]` were
+    /// declared.
+    pub fn log_scale_from_data(&self, metric: &str, observed: &[f64]) -> bool {
+        use tessera_surrogate::transform::{positive_decades, LOG_SCALE_DECADES};
+        !self.metric_bounds.contains_key(metric)
+            && self.bounds_of(metric) == [None, None]
+            && positive_decades(observed).is_some_and(|d| d >= LOG_SCALE_DECADES)
     }
 
     /// The transform a metric's surrogate is fitted with, given the values
@@ -582,7 +582,7 @@ impl Spec {
     /// [`Spec::log_scale_from_data`]).
     pub fn transform_for(&self, metric: &str, observed: &[f64]) -> Transform {
         let [lo, hi] = self.bounds_of(metric);
-        if self.log_scale_from_data(metric, observed).is_some() {
+        if self.log_scale_from_data(metric, observed) {
             return Transform::for_bounds(Some(0.0), None, observed);
         }
         match self.fit_scale(metric) {
