@@ -6,8 +6,10 @@
 //! Run: `cargo bench --bench planner -- [optima|latency|mapping|all]`.
 //!
 //! Optional: a function name after the group runs that function only;
-//! `TESSERA_BENCH_Q=1,4` chooses the batch sizes and `TESSERA_BENCH_INITIAL`
-//! the initial design size (default 5 per input).
+//! `TESSERA_BENCH_Q=1,4` chooses the batch sizes, `TESSERA_BENCH_INITIAL`
+//! the initial design size (default 5 per input), `TESSERA_BENCH_SEEDS=11,12`
+//! the seeds (default 1 to 10); `TESSERA_BENCH_TRACE=1` prints each round's
+//! best value, hyperparameters and proposals to stderr.
 //!
 //! - optima: evaluations until the best value is within 1% (of its absolute
 //!   value) of the published minimum (Surjanovic & Bingham VLSE; Dixon &
@@ -160,6 +162,25 @@ fn search(case: &Case, seed: u64, q: usize) -> Option<usize> {
             seed ^ u64::from(batch) << 20,
         );
         batch += 1;
+        if std::env::var_os("TESSERA_BENCH_TRACE").is_some() {
+            let best = results
+                .iter()
+                .map(|r| r.replicates[0]["value"])
+                .fold(f64::INFINITY, f64::min);
+            let h = plan.objective_fit.as_ref().map(|f| f.gp.hyper().clone());
+            eprintln!(
+                "n={} best={best:.4} hyper={:?} new={:?}",
+                results.len(),
+                h,
+                plan.points
+                    .iter()
+                    .map(|p| p
+                        .proposal
+                        .as_ref()
+                        .map(|i| (i.predicted_mean, i.predicted_sd)))
+                    .collect::<Vec<_>>()
+            );
+        }
         for p in plan.points {
             if push(&mut results, p.values) {
                 return Some(results.len());
@@ -236,7 +257,10 @@ fn optima() {
         if only.as_deref().is_some_and(|o| o != case.name) {
             continue;
         }
-        let seeds: Vec<u64> = (1..=10).collect();
+        let seeds: Vec<u64> = std::env::var("TESSERA_BENCH_SEEDS")
+            .ok()
+            .map(|v| v.split(',').filter_map(|x| x.parse().ok()).collect())
+            .unwrap_or_else(|| (1..=10).collect());
         let mut cells = Vec::new();
         let mut seq_median = case.cap as f64;
         for &q in &qs {

@@ -20,12 +20,15 @@
 //! minimum, a Thompson sample, expected improvement, a Thompson sample, and
 //! so on; a batch of three or more starts at the surrogate's minimum (a
 //! batch of two on odd batches), ends with a Thompson sample and fills the
-//! rest by expected improvement. With too little data, or if the fit
-//! fails, the planner proposes seeded uniform points and says why.
+//! rest by expected improvement (from four points, the second is a Thompson
+//! sample near the minimum). Before any of that, a design with fewer than
+//! [`MIN_DESIGN_PER_PARAM`] points per parameter is extended by space-filling
+//! points. With too little data, or if the fit fails, the planner proposes
+//! seeded uniform points and says why.
 
 use crate::calibration;
 use crate::fitter::{self, MetricFit};
-use crate::spec::{Direction, Spec, Strategy};
+use crate::spec::{Direction, Spec, Strategy, MIN_DESIGN_PER_PARAM};
 use crate::status::PointResults;
 use crate::store::{NewPoint, PointOrigin, ProposalInfo};
 use rand::{Rng, SeedableRng};
@@ -100,6 +103,17 @@ impl Planner {
                 return self.calibrate(spec, results, pending, q, batch, seed);
             }
         };
+        // A design with fewer than [`MIN_DESIGN_PER_PARAM`] points per parameter
+        // is first extended by space-filling points: on so few points the
+        // fitted length scales can call a parameter irrelevant that only
+        // matters elsewhere in the box, and the search then never looks
+        // along it (measured on Hartmann-6 in docs/benchmarks.md).
+        let d = spec.dimension();
+        let issued = results.len() + pending.len();
+        let enough = MIN_DESIGN_PER_PARAM as usize * d;
+        if origin == PointOrigin::Improve && d >= 2 && issued < enough {
+            return top_up(spec, results, pending, q.min(enough - issued), batch, seed);
+        }
         let objective = spec.objective_metric();
         let jobs = fitter::jobs_from_results(spec, results, spec.seed);
         let Some(job) = jobs.iter().find(|j| j.metric == objective) else {
@@ -361,6 +375,47 @@ impl Planner {
     }
 }
 
+/// Space-filling points that extend the design (see [`MIN_DESIGN_PER_PARAM`]).
+fn top_up(
+    spec: &Spec,
+    results: &[PointResults],
+    pending: &[Vec<f64>],
+    q: usize,
+    batch: u32,
+    seed: u64,
+) -> Plan {
+    let existing: Vec<Vec<f64>> = results
+        .iter()
+        .map(|p| spec.to_unit(&p.values))
+        .chain(pending.iter().map(|v| spec.to_unit(v)))
+        .collect();
+    let d = spec.dimension();
+    let surrogate = format!(
+        "none yet: a space-filling point, extending the design to {} points ({MIN_DESIGN_PER_PARAM} per parameter) before the search",
+        MIN_DESIGN_PER_PARAM as usize * d
+    );
+    let points = tessera_surrogate::design::extend_maximin(&existing, q, d, seed)
+        .iter()
+        .map(|u| NewPoint {
+            values: spec.to_natural(u),
+            origin: PointOrigin::Improve,
+            batch,
+            proposal: Some(ProposalInfo {
+                acquisition: f64::NAN,
+                predicted_mean: f64::NAN,
+                predicted_sd: f64::NAN,
+                surrogate: surrogate.clone(),
+            }),
+        })
+        .collect();
+    Plan {
+        points,
+        objective_fit: None,
+        best_acquisition: None,
+        wave: None,
+    }
+}
+
 /// Uniform candidates drawn per calibration wave (our choice: a standard
 /// error of the region's share below 0.8 percentage points).
 pub const CANDIDATES: usize = 4000;
@@ -389,5 +444,87 @@ fn uniform(spec: &Spec, q: usize, origin: PointOrigin, batch: u32, seed: u64, wh
         objective_fit: None,
         best_acquisition: None,
         wave: None,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::collections::BTreeMap;
+
+    fn sweep(strategy: &str) -> Spec {
+        let mut text = format!(
+            "name = \"t\"\nseed = 3\nbudget = 40\ninitial = 5\nstrategy = \"{strategy}\"\n[model]\nname = \"hartmann3\"\n"
+        );
+        for k in 1..=3 {
+            text.push_str(&format!("[params.x{k}]\nrange = [0.0, 1.0]\n"));
+        }
+        text.push_str("[objective]\nminimize = \"value\"\n");
+        crate::spec::parse(&text, "t.toml").expect("valid sweep")
+    }
+
+    fn with_results(spec: &Spec) -> Vec<PointResults> {
+        spec.initial_design()
+            .into_iter()
+            .enumerate()
+            .map(|(i, values)| PointResults {
+                point_id: i as i64 + 1,
+                idx: i as u64,
+                replicates: vec![BTreeMap::from([(
+                    "value".to_string(),
+                    values.iter().map(|v| (v - 0.5).powi(2)).sum::<f64>(),
+                )])],
+                values,
+                failed: 0,
+            })
+            .collect()
+    }
+
+    /// Fewer than five points per parameter: the planner extends the design
+    /// by space-filling points up to 15 (3 parameters), counting the points
+    /// still running, then searches.
+    #[test]
+    fn a_small_design_is_extended_before_the_search() {
+        let spec = sweep("improve");
+        let results = with_results(&spec);
+        let mut planner = Planner::new();
+        let plan = planner.plan(&spec, &results, &[], 4, 1, 11);
+        assert_eq!(plan.points.len(), 4);
+        assert!(plan.objective_fit.is_none());
+        for p in &plan.points {
+            let info = p.proposal.as_ref().expect("proposal info");
+            assert!(
+                info.surrogate.contains("space-filling"),
+                "{}",
+                info.surrogate
+            );
+        }
+        // 5 done and 8 running: two more to reach 15.
+        let running: Vec<Vec<f64>> = plan
+            .points
+            .iter()
+            .map(|p| p.values.clone())
+            .chain(tessera_surrogate::design::extend_maximin(&[], 4, 3, 2))
+            .collect();
+        let plan = planner.plan(&spec, &results, &running, 4, 2, 12);
+        assert_eq!(plan.points.len(), 2);
+        // With 15 points issued the search starts (a surrogate chooses).
+        let more = planner.plan(
+            &spec,
+            &results,
+            &[running.clone(), vec![vec![0.5; 3]; 2]].concat(),
+            4,
+            3,
+            13,
+        );
+        assert!(more.points.iter().all(|p| {
+            !p.proposal
+                .as_ref()
+                .is_some_and(|i| i.surrogate.contains("space-filling"))
+        }));
+        // `explore` maps the box with its own criterion from the start.
+        let spec = sweep("explore");
+        let plan = Planner::new().plan(&spec, &results, &[], 4, 1, 11);
+        assert!(plan.objective_fit.is_some());
     }
 }

@@ -323,6 +323,12 @@ impl Target {
     }
 }
 
+/// Points per parameter below which an `improve` search first extends its
+/// design by space-filling points, and `tessera check` warns (our choice,
+/// measured on Hartmann-6 in docs/benchmarks.md; Jones, Schonlau & Welch
+/// 1998 began with 10 per parameter).
+pub const MIN_DESIGN_PER_PARAM: u32 = 5;
+
 /// Parses and validates a sweep file. `file` is only used in error messages.
 ///
 /// Returns every problem found, not only the first. For a built-in model

@@ -56,7 +56,7 @@ const DEFAULT_TIMEOUT: Duration = Duration::from_secs(3600);
 const INITIAL_PER_PARAM: u32 = 10;
 /// Fewer initial points per parameter than this earn a warning for an
 /// `improve` search (measured on Hartmann-6: docs/benchmarks.md).
-const FEW_INITIAL_PER_PARAM: u32 = 5;
+const FEW_INITIAL_PER_PARAM: u32 = super::MIN_DESIGN_PER_PARAM;
 /// Largest accepted `replicates` and `retries` (a guard against typos).
 const MAX_REPEATS: i64 = 10_000;
 
@@ -318,7 +318,8 @@ impl Reader<'_> {
                     at,
                     "initial",
                     format!(
-                        "{initial} initial points for {d} parameters: with fewer than {FEW_INITIAL_PER_PARAM} per parameter the search often settles in a local optimum (on Hartmann-6, 6 parameters, 20 initial points came within 1% of the minimum on 1 of 10 seeds in 200 runs, 30 on 8 of 10; docs/benchmarks.md); consider initial = {enough} or more"
+                        "{initial} initial points for {d} parameters: with fewer than {FEW_INITIAL_PER_PARAM} per parameter a surrogate can miss a parameter that matters only elsewhere in the box, so the search first adds {} space-filling points, and it still often settles in a local optimum (docs/benchmarks.md); consider initial = {enough} or more, so that the Latin hypercube holds them",
+                        enough - initial
                     ),
                 );
             }
