@@ -186,11 +186,17 @@ pub fn summary(spec: &Spec, file: &str) -> String {
         if spec.replicates == 1 { "" } else { "s" },
         runs
     );
-    let batch = spec
-        .batch
-        .map_or("as many as free worker slots".to_string(), |b| {
-            b.to_string()
-        });
+    // Without `batch`, the size depends on how the sweep is run (the
+    // `reproducible` default differs between `run` and `serve`).
+    let batch = match (spec.batch, spec.reproducible) {
+        (Some(b), _) => b.to_string(),
+        (None, Some(true)) => tessera_coordinator::spec::DEFAULT_REPRODUCIBLE_BATCH.to_string(),
+        (None, Some(false)) => "as many as free worker slots".to_string(),
+        (None, None) => format!(
+            "{} with `tessera run` (reproducible), as many as free worker slots with `tessera serve`",
+            tessera_coordinator::spec::DEFAULT_REPRODUCIBLE_BATCH
+        ),
+    };
     let _ = writeln!(
         s,
         "then:   strategy {}, batch {}, retries {}",

@@ -233,7 +233,7 @@ fn header(
         s,
         "# batch",
         "4",
-        "points proposed at once (default: free worker slots)",
+        "points proposed at once (default: 4 with `run`, free slots with `serve`)",
     );
     s.push('\n');
 }

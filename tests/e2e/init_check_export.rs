@@ -25,6 +25,8 @@ fn init_then_check_succeed_for_every_built_in_model() {
     let summary = text(&out.stdout);
     assert!(summary.contains("sweep.toml: valid"), "{summary}");
     assert!(summary.contains("height_sd"), "{summary}");
+    // No `batch` and no `reproducible`: the size depends on the command.
+    assert!(summary.contains("batch 4 with `tessera run`"), "{summary}");
     assert!(
         text(&out.stderr).is_empty(),
         "no warnings: {}",
