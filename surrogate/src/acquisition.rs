@@ -491,8 +491,10 @@ pub fn propose(
             None
         };
         let thompson = thompson && exploited.is_none();
-        // In a batch of four or more that started at the surrogate's
-        // minimum, the second point is a Thompson sample near it.
+        // In a batch of four or more whose turn starts at the surrogate's
+        // minimum, the second point is a Thompson sample near the first
+        // (the minimum, or expected improvement's choice when the minimum
+        // lies too close to a point already in the sweep).
         let local = if strategy == Strategy::Improve
             && q >= LOCAL_FROM
             && out.len() == 1
