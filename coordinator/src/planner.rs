@@ -300,11 +300,7 @@ impl Planner {
         };
         self.waves += 1;
         let region = calibration::region(&matcher, CANDIDATES, seed);
-        let existing: Vec<Vec<f64>> = results
-            .iter()
-            .map(|p| spec.to_unit(&p.values))
-            .chain(pending.iter().map(|v| spec.to_unit(v)))
-            .collect();
+        let existing = in_sweep(spec, results, pending);
         let (pool, where_) = if region.kept.is_empty() {
             // Nothing left: the tenth of the candidates closest to matching.
             let xs = calibration::uniform_points(CANDIDATES, spec.dimension(), seed);
@@ -375,6 +371,15 @@ impl Planner {
     }
 }
 
+/// Every point of the sweep, finished or running, in the unit cube.
+fn in_sweep(spec: &Spec, results: &[PointResults], pending: &[Vec<f64>]) -> Vec<Vec<f64>> {
+    results
+        .iter()
+        .map(|p| spec.to_unit(&p.values))
+        .chain(pending.iter().map(|v| spec.to_unit(v)))
+        .collect()
+}
+
 /// Space-filling points that extend the design (see [`MIN_DESIGN_PER_PARAM`]).
 fn top_up(
     spec: &Spec,
@@ -384,27 +389,35 @@ fn top_up(
     batch: u32,
     seed: u64,
 ) -> Plan {
-    let existing: Vec<Vec<f64>> = results
-        .iter()
-        .map(|p| spec.to_unit(&p.values))
-        .chain(pending.iter().map(|v| spec.to_unit(v)))
-        .collect();
     let d = spec.dimension();
-    let surrogate = format!(
+    let units =
+        tessera_surrogate::design::extend_maximin(&in_sweep(spec, results, pending), q, d, seed);
+    let why = format!(
         "none yet: a space-filling point, extending the design to {} points ({MIN_DESIGN_PER_PARAM} per parameter) before the search",
         MIN_DESIGN_PER_PARAM as usize * d
     );
-    let points = tessera_surrogate::design::extend_maximin(&existing, q, d, seed)
+    without_surrogate(spec, &units, PointOrigin::Improve, batch, &why)
+}
+
+/// A plan of points no surrogate chose, each labelled `why`.
+fn without_surrogate(
+    spec: &Spec,
+    units: &[Vec<f64>],
+    origin: PointOrigin,
+    batch: u32,
+    why: &str,
+) -> Plan {
+    let points = units
         .iter()
         .map(|u| NewPoint {
             values: spec.to_natural(u),
-            origin: PointOrigin::Improve,
+            origin,
             batch,
             proposal: Some(ProposalInfo {
                 acquisition: f64::NAN,
                 predicted_mean: f64::NAN,
                 predicted_sd: f64::NAN,
-                surrogate: surrogate.clone(),
+                surrogate: why.to_string(),
             }),
         })
         .collect();
@@ -423,28 +436,11 @@ pub const CANDIDATES: usize = 4000;
 fn uniform(spec: &Spec, q: usize, origin: PointOrigin, batch: u32, seed: u64, why: &str) -> Plan {
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
     let d = spec.dimension();
-    let points = (0..q)
-        .map(|_| {
-            let u: Vec<f64> = (0..d).map(|_| rng.random::<f64>()).collect();
-            NewPoint {
-                values: spec.to_natural(&u),
-                origin,
-                batch,
-                proposal: Some(ProposalInfo {
-                    acquisition: f64::NAN,
-                    predicted_mean: f64::NAN,
-                    predicted_sd: f64::NAN,
-                    surrogate: format!("none ({why}): a uniform random point"),
-                }),
-            }
-        })
+    let units: Vec<Vec<f64>> = (0..q)
+        .map(|_| (0..d).map(|_| rng.random::<f64>()).collect())
         .collect();
-    Plan {
-        points,
-        objective_fit: None,
-        best_acquisition: None,
-        wave: None,
-    }
+    let why = format!("none ({why}): a uniform random point");
+    without_surrogate(spec, &units, origin, batch, &why)
 }
 
 #[cfg(test)]
