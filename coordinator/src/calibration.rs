@@ -255,40 +255,6 @@ pub fn region(m: &Matcher, n: usize, seed: u64) -> Region {
     }
 }
 
-/// Picks `q` points from `candidates` one at a time, each the farthest
-/// from `existing` and the points already picked (greedy maximin; Johnson,
-/// Moore & Ylvisaker 1990): a space-filling batch inside a region.
-pub fn spread(candidates: &[Vec<f64>], existing: &[Vec<f64>], q: usize) -> Vec<Vec<f64>> {
-    let dist2 =
-        |a: &[f64], b: &[f64]| -> f64 { a.iter().zip(b).map(|(x, y)| (x - y).powi(2)).sum() };
-    let mut nearest: Vec<f64> = candidates
-        .iter()
-        .map(|c| {
-            existing
-                .iter()
-                .map(|e| dist2(c, e))
-                .fold(f64::INFINITY, f64::min)
-        })
-        .collect();
-    let mut out = Vec::new();
-    for _ in 0..q.min(candidates.len()) {
-        let Some((k, _)) = nearest
-            .iter()
-            .enumerate()
-            .filter(|(_, d)| **d > 0.0)
-            .max_by(|a, b| a.1.total_cmp(b.1))
-        else {
-            break;
-        };
-        let pick = candidates[k].clone();
-        for (c, d) in candidates.iter().zip(nearest.iter_mut()) {
-            *d = d.min(dist2(c, &pick));
-        }
-        out.push(pick);
-    }
-    out
-}
-
 /// Posterior samples on the surrogates and their diagnostics.
 #[derive(Clone, Debug)]
 pub struct Posterior {
@@ -431,12 +397,5 @@ mod tests {
         assert_eq!(combine(&[1.0, 5.0, 2.0, 4.0], &t4), 4.0);
         let weighted = vec![target(1.0), target(0.0)];
         assert_eq!(combine(&[1.0, 9.0], &weighted), 1.0);
-    }
-
-    #[test]
-    fn spread_picks_far_points_first() {
-        let c = vec![vec![0.1], vec![0.5], vec![0.9]];
-        let picked = spread(&c, &[vec![0.0]], 2);
-        assert_eq!(picked, vec![vec![0.9], vec![0.5]]);
     }
 }

@@ -320,7 +320,7 @@ impl Planner {
         };
         let snap = |u: &[f64]| spec.to_unit(&spec.to_natural(u));
         let pool: Vec<Vec<f64>> = pool.iter().map(|u| snap(u)).collect();
-        let picked = calibration::spread(&pool, &existing, q);
+        let picked = tessera_surrogate::design::spread(&pool, &existing, q);
         let imp = matcher.combined(&picked);
         let n_points = results.iter().filter(|p| !p.replicates.is_empty()).count();
         let surrogate = format!(

@@ -1,6 +1,7 @@
 //! Space-filling designs in the unit cube: Latin hypercubes (McKay, Beckman
 //! & Conover 1979) improved by the phi_p criterion (Morris & Mitchell 1995),
-//! and the measures used to judge a design (phi_p, minimum distance, the
+//! greedy maximin batches and extensions of an existing design, and the
+//! measures used to judge a design (phi_p, minimum distance, the
 //! squared centred L2 discrepancy of Hickernell 1998).
 //!
 //! Hand-written: no maintained Rust crate offers a seeded maximin Latin
@@ -51,20 +52,35 @@ pub fn maximin_lhs(n: usize, d: usize, seed: u64) -> Vec<Vec<f64>> {
     x
 }
 
+/// Picks `q` points from `candidates` one at a time, each the farthest
+/// from `existing` and the points already picked (greedy maximin; Johnson,
+/// Moore & Ylvisaker 1990): a space-filling batch inside a region.
+pub fn spread(candidates: &[Vec<f64>], existing: &[Vec<f64>], q: usize) -> Vec<Vec<f64>> {
+    let nearest = candidates
+        .iter()
+        .map(|c| {
+            existing
+                .iter()
+                .map(|e| sq_dist(c, e))
+                .fold(f64::INFINITY, f64::min)
+        })
+        .collect();
+    farthest_first(candidates, nearest, q)
+}
+
 /// `k` more points for a design that already holds `existing` (all in the
-/// unit cube): each in turn the candidate of a random Latin hypercube (at
-/// least 1024 points) farthest from every earlier point and from its own
-/// mirror images in the faces of the cube (twice its distance to the
-/// nearest face), so that the extension fills the gaps of the design
-/// rather than its corners. Greedy maximin extension, common practice, no
-/// source. Deterministic given the seed; `d == 0` gives `k` empty points.
+/// unit cube): [`spread`] over a random Latin hypercube of at least 1024
+/// candidates, with each candidate also kept away from its own mirror
+/// images in the faces of the cube (twice its distance to the nearest
+/// face), so that the extension fills the gaps of the design rather than
+/// its corners (the mirror rule is our choice, no source). Deterministic
+/// given the seed; `d == 0` gives `k` empty points.
 pub fn extend_maximin(existing: &[Vec<f64>], k: usize, d: usize, seed: u64) -> Vec<Vec<f64>> {
     if d == 0 {
         return vec![Vec::new(); k];
     }
     let cands = latin_hypercube((64 * k).max(1024), d, seed);
-    // Each candidate's squared distance to the nearest point so far.
-    let mut near: Vec<f64> = cands
+    let nearest = cands
         .iter()
         .map(|c| {
             let face = c
@@ -78,16 +94,28 @@ pub fn extend_maximin(existing: &[Vec<f64>], k: usize, d: usize, seed: u64) -> V
                 .fold(4.0 * face * face, f64::min)
         })
         .collect();
-    let mut out: Vec<Vec<f64>> = Vec::with_capacity(k);
-    for _ in 0..k {
-        let Some(best) = (0..cands.len()).max_by(|&a, &b| near[a].total_cmp(&near[b])) else {
+    farthest_first(&cands, nearest, k)
+}
+
+/// The greedy maximin loop: `nearest[i]` is candidate i's squared distance
+/// to the nearest point so far; candidates already taken (distance 0) are
+/// never taken again.
+fn farthest_first(candidates: &[Vec<f64>], mut nearest: Vec<f64>, q: usize) -> Vec<Vec<f64>> {
+    let mut out = Vec::new();
+    for _ in 0..q.min(candidates.len()) {
+        let Some((k, _)) = nearest
+            .iter()
+            .enumerate()
+            .filter(|(_, d)| **d > 0.0)
+            .max_by(|a, b| a.1.total_cmp(b.1))
+        else {
             break;
         };
-        let x = cands[best].clone();
-        for (n, c) in near.iter_mut().zip(&cands) {
-            *n = n.min(sq_dist(c, &x));
+        let pick = candidates[k].clone();
+        for (c, d) in candidates.iter().zip(nearest.iter_mut()) {
+            *d = d.min(sq_dist(c, &pick));
         }
-        out.push(x);
+        out.push(pick);
     }
     out
 }
@@ -387,6 +415,13 @@ mod tests {
         assert!(is_latin_hypercube(&two));
         assert_eq!(phi_p(&one, 50.0), 0.0);
         assert!(min_distance(&one).is_infinite());
+    }
+
+    #[test]
+    fn spread_picks_far_points_first() {
+        let c = vec![vec![0.1], vec![0.5], vec![0.9]];
+        let picked = spread(&c, &[vec![0.0]], 2);
+        assert_eq!(picked, vec![vec![0.9], vec![0.5]]);
     }
 
     #[test]

@@ -246,7 +246,7 @@ pub fn calibrate(
             .collect(),
         None => BTreeMap::new(),
     };
-    let reps = calibration::spread(&region.kept, &[], 5);
+    let reps = tessera_surrogate::design::spread(&region.kept, &[], 5);
     let post = calibration::posterior(
         &matcher,
         &region,

@@ -19,7 +19,7 @@ use super::error::LineIndex;
 use super::toml_access::{closest, join, num, table_start, type_name, Reader, Value};
 use super::{
     Direction, FitScale, MetricBounds, ModelSpec, Objective, ParamSpec, Scale, Spec, SpecError,
-    SpecErrors, StopRule, Strategy, Target,
+    SpecErrors, StopRule, Strategy, Target, MIN_DESIGN_PER_PARAM,
 };
 
 const TOP_KEYS: &[&str] = &[
@@ -54,9 +54,6 @@ const DEFAULT_TIMEOUT: Duration = Duration::from_secs(3600);
 /// Default `initial` per parameter (common practice, no source: the
 /// "10 x dimension" rule of thumb for initial GP designs).
 const INITIAL_PER_PARAM: u32 = 10;
-/// Fewer initial points per parameter than this earn a warning for an
-/// `improve` search (measured on Hartmann-6: docs/benchmarks.md).
-const FEW_INITIAL_PER_PARAM: u32 = super::MIN_DESIGN_PER_PARAM;
 /// Largest accepted `replicates` and `retries` (a guard against typos).
 const MAX_REPEATS: i64 = 10_000;
 
@@ -312,13 +309,13 @@ impl Reader<'_> {
         };
         let d = params.len() as u32;
         if let Some(at) = initial_at {
-            let enough = FEW_INITIAL_PER_PARAM.saturating_mul(d);
+            let enough = MIN_DESIGN_PER_PARAM.saturating_mul(d);
             if strategy == Strategy::Improve && d >= 2 && initial < enough && initial < budget {
                 self.warning(
                     at,
                     "initial",
                     format!(
-                        "{initial} initial points for {d} parameters: with fewer than {FEW_INITIAL_PER_PARAM} per parameter a surrogate can miss a parameter that matters only elsewhere in the box, so the search first adds {} space-filling points, and it still often settles in a local optimum (docs/benchmarks.md); consider initial = {enough} or more, so that the Latin hypercube holds them",
+                        "{initial} initial points for {d} parameters: with fewer than {MIN_DESIGN_PER_PARAM} per parameter a surrogate can miss a parameter that matters only elsewhere in the box, so the search first adds {} space-filling points, and it still often settles in a local optimum (docs/benchmarks.md); consider initial = {enough} or more, so that the Latin hypercube holds them",
                         enough - initial
                     ),
                 );
