@@ -575,6 +575,15 @@ fn few_initial_points_for_an_improve_search_are_a_warning() {
     assert_eq!(w.len(), 1, "{w:?}");
     assert_eq!((w[0].key.as_str(), w[0].line), ("initial", 3));
     assert!(w[0].message.contains("initial = 10"), "{}", w[0].message);
+    assert!(
+        w[0].message.contains("adds 1 space-filling"),
+        "{}",
+        w[0].message
+    );
+    // The extension stops at the budget.
+    let tight = BASE.replace("budget = 20", "budget = 6\ninitial = 4");
+    let (_, w) = spec::parse_with_warnings(&tight, "f").expect("valid");
+    assert!(w[0].message.contains("adds 2 space-filling"), "{w:?}");
     for text in [
         BASE.replace("budget = 20", "budget = 20\ninitial = 10"),
         few.replace("budget = 20", "budget = 20\nstrategy = \"explore\""),

@@ -316,7 +316,7 @@ impl Reader<'_> {
                     "initial",
                     format!(
                         "{initial} initial points for {d} parameters: with fewer than {MIN_DESIGN_PER_PARAM} per parameter a surrogate can miss a parameter that matters only elsewhere in the box, so the search first adds {} space-filling points, and it still often settles in a local optimum (docs/benchmarks.md); consider initial = {enough} or more, so that the Latin hypercube holds them",
-                        enough - initial
+                        enough.min(budget) - initial
                     ),
                 );
             }
