@@ -432,3 +432,68 @@ fn loo_of_constant_outputs_is_finite() {
         .expect("json")
         .contains("\"q2\":0.0"));
 }
+
+/// Empirical mean and covariance of draws (one row per draw) against the
+/// posterior: each within 5 Monte Carlo standard errors.
+fn assert_draws_match_posterior(gp: &Gp, xs: &[Vec<f64>], draws: &[Vec<f64>], what: &str) {
+    let k = draws.len() as f64;
+    let mu = gp.predict_mean(xs);
+    let cov = gp.predict_cov(xs);
+    let m = xs.len();
+    let emp_mean: Vec<f64> = (0..m)
+        .map(|i| draws.iter().map(|d| d[i]).sum::<f64>() / k)
+        .collect();
+    for i in 0..m {
+        let se = (cov[i][i] / k).sqrt();
+        assert!(
+            (emp_mean[i] - mu[i]).abs() < 5.0 * se + 1e-12,
+            "{what}: mean at point {i}: {} against {}",
+            emp_mean[i],
+            mu[i]
+        );
+        for j in 0..m {
+            let c: f64 = draws
+                .iter()
+                .map(|d| (d[i] - emp_mean[i]) * (d[j] - emp_mean[j]))
+                .sum::<f64>()
+                / (k - 1.0);
+            // Var of a sample covariance of normals: (s_ii s_jj + s_ij^2) / k.
+            let se = ((cov[i][i] * cov[j][j] + cov[i][j] * cov[i][j]) / k).sqrt();
+            assert!(
+                (c - cov[i][j]).abs() < 5.0 * se + 1e-12,
+                "{what}: covariance ({i}, {j}): {c} against {}",
+                cov[i][j]
+            );
+        }
+    }
+}
+
+#[test]
+fn sample_paths_have_the_posterior_mean_and_covariance() {
+    // Joint draws (mean plus Cholesky factor times normals) and pathwise
+    // conditioning (Matheron's rule, Wilson et al. 2020, ICML, eq. 13, with a
+    // random-feature prior, Rahimi & Recht 2007, whose expected covariance
+    // is the kernel's: Bochner's theorem, GPML sec. 4.2.1) must both have
+    // the posterior's mean and covariance (GPML eqs. 2.23-2.24). Points near
+    // the data, between, and far outside it (where the prior dominates).
+    let f = fixture();
+    let (obs, xs) = data(&f);
+    let mut pts: Vec<Vec<f64>> = xs.iter().take(3).cloned().collect();
+    pts.push(obs.x[0].iter().map(|v| v + 0.01).collect());
+    pts.push(vec![2.5, -1.5, 3.0]);
+    for kernel in [KernelKind::Matern52, KernelKind::SquaredExponential] {
+        let hyper = Hyper {
+            mean: 0.3,
+            signal_var: 1.4,
+            lengthscales: vec![0.4, 0.7, 1.1],
+            nugget: 1e-3,
+        };
+        let gp = Gp::with_hyper(&obs, kernel, hyper, true).expect("gp");
+        let joint = gp.sample_paths(&pts, 4000, 7);
+        assert_draws_match_posterior(&gp, &pts, &joint, &format!("joint {kernel:?}"));
+        let pathwise: Vec<Vec<f64>> = (0..4000u64)
+            .map(|s| gp.sample_path(256, s).eval(&pts))
+            .collect();
+        assert_draws_match_posterior(&gp, &pts, &pathwise, &format!("pathwise {kernel:?}"));
+    }
+}

@@ -12,7 +12,10 @@
 use rayon::prelude::*;
 
 use super::kernel::{scaled_sq_dist, KernelKind};
-use super::linalg::solve_chol;
+use faer::linalg::matmul::matmul;
+use faer::{Accum, MatMut, MatRef, Par};
+
+use super::linalg::{kernel_cross, solve_chol};
 use super::Gp;
 
 const SQRT5: f64 = 2.236_067_977_499_79;
@@ -124,13 +127,15 @@ impl Gp {
 
 /// The integrated-variance reduction of a GP over fixed reference points,
 /// with the solves K^-1 k(z) done once (n x m), so that each candidate
-/// costs O(n m) plus one posterior variance.
+/// costs O(n m) plus one posterior variance; the products for a block of
+/// candidates are one dense matrix product.
 pub struct IntegratedVariance<'a> {
     gp: &'a Gp,
     reference: &'a [Vec<f64>],
-    /// K^-1 k(z) for every reference point, row per point.
-    kz: Vec<Vec<f64>>,
-    inv_l: Vec<f64>,
+    /// Reference points, row-major.
+    z: Vec<f64>,
+    /// K^-1 k(z) for every reference point, n x m column-major.
+    kz: Vec<f64>,
 }
 
 impl std::fmt::Debug for IntegratedVariance<'_> {
@@ -141,6 +146,9 @@ impl std::fmt::Debug for IntegratedVariance<'_> {
     }
 }
 
+/// Candidates per dense product in [`IntegratedVariance::reduction`].
+const IV_BLOCK: usize = 128;
+
 impl<'a> IntegratedVariance<'a> {
     /// Prepares the criterion of `gp` over `reference`.
     #[track_caller]
@@ -150,27 +158,14 @@ impl<'a> IntegratedVariance<'a> {
             reference.iter().all(|p| p.len() == d),
             "points must have dimension {d}"
         );
-        let sf2 = gp.hyper.signal_var;
-        let inv_l: Vec<f64> = gp.hyper.lengthscales.iter().map(|l| 1.0 / l).collect();
-        let kz: Vec<Vec<f64>> = reference
-            .par_iter()
-            .map(|z| {
-                let mut col: Vec<f64> = (0..n)
-                    .map(|i| {
-                        sf2 * gp
-                            .kernel
-                            .unit(scaled_sq_dist(z, &gp.x[i * d..(i + 1) * d], &inv_l))
-                    })
-                    .collect();
-                solve_chol(&gp.chol, n, &mut col);
-                col
-            })
-            .collect();
+        let z: Vec<f64> = reference.iter().flatten().copied().collect();
+        let mut kz = cross(gp, &gp.x, n, &z, reference.len());
+        solve_chol(&gp.chol, n, &mut kz);
         IntegratedVariance {
             gp,
             reference,
+            z,
             kz,
-            inv_l,
         }
     }
 
@@ -183,28 +178,52 @@ impl<'a> IntegratedVariance<'a> {
         if m == 0 {
             return vec![0.0; xs.len()];
         }
-        let sf2 = gp.hyper.signal_var;
+        assert!(
+            xs.iter().all(|x| x.len() == d),
+            "points must have dimension {d}"
+        );
         let noise = gp.hyper.nugget + gp.jitter;
         let s2 = gp.y_scale * gp.y_scale;
-        let kern = |a: &[f64], b: &[f64]| sf2 * gp.kernel.unit(scaled_sq_dist(a, b, &self.inv_l));
         let var: Vec<f64> = gp
             .predict(xs)
             .iter()
             .map(|p| (p.sd / gp.y_scale).powi(2))
             .collect();
-        xs.par_iter()
-            .zip(var)
-            .map(|(x, var_x)| {
-                assert_eq!(x.len(), d, "points must have dimension {d}");
-                let kx: Vec<f64> = (0..n).map(|i| kern(x, &gp.x[i * d..(i + 1) * d])).collect();
-                let mut total = 0.0;
-                for (z, kzi) in self.reference.iter().zip(&self.kz) {
-                    // cov(z, x) = k(z, x) - k(z)^T K^-1 k(x)
-                    let c = kern(z, x) - kzi.iter().zip(&kx).map(|(a, b)| a * b).sum::<f64>();
-                    total += c * c;
-                }
-                s2 * total / (m as f64 * (var_x + noise))
+        let kzv = MatRef::from_column_major_slice(&self.kz, n, m);
+        xs.par_chunks(IV_BLOCK)
+            .zip(var.par_chunks(IV_BLOCK))
+            .flat_map_iter(|(block, var)| {
+                let b = block.len();
+                let flat: Vec<f64> = block.iter().flatten().copied().collect();
+                // cov(z, x) = k(z, x) - (K^-1 k(z))^T k(x), m x b.
+                let kx = cross(gp, &gp.x, n, &flat, b);
+                let mut cov = cross(gp, &self.z, m, &flat, b);
+                matmul(
+                    MatMut::from_column_major_slice_mut(&mut cov, m, b),
+                    Accum::Add,
+                    kzv.transpose(),
+                    MatRef::from_column_major_slice(&kx, n, b),
+                    -1.0,
+                    Par::Seq,
+                );
+                cov.chunks(m)
+                    .zip(var)
+                    .map(|(col, var_x)| {
+                        let total: f64 = col.iter().map(|c| c * c).sum();
+                        s2 * total / (m as f64 * (var_x + noise))
+                    })
+                    .collect::<Vec<f64>>()
             })
             .collect()
     }
+}
+
+/// s_f^2 k(a_i, b_j) for `na` rows a and `nb` rows b (row-major):
+/// na x nb, column-major.
+fn cross(gp: &Gp, a: &[f64], na: usize, b: &[f64], nb: usize) -> Vec<f64> {
+    if gp.d == 0 {
+        return vec![gp.hyper.signal_var; na * nb];
+    }
+    let inv_l: Vec<f64> = gp.hyper.lengthscales.iter().map(|l| 1.0 / l).collect();
+    kernel_cross(gp.kernel, a, b, gp.d, gp.hyper.signal_var, &inv_l)
 }

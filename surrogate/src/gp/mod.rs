@@ -20,6 +20,7 @@ mod paths;
 pub use fit::{bounds, FitOptions};
 pub use gradient::{IntegratedVariance, PredictionGradient};
 pub use kernel::KernelKind;
+pub use paths::SamplePath;
 
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
