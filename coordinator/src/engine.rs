@@ -308,10 +308,11 @@ impl Engine {
     }
 
     /// Whether new points are being planned, or will be as soon as the
-    /// planner task wakes: a worker offered nothing should ask again soon.
+    /// planner task wakes or the running points of a reproducible batch
+    /// report: a worker offered nothing should ask again soon.
     pub fn plan_under_way(&self) -> bool {
         let s = lock(&self.sched);
-        s.is_planning() || s.wants_plan().is_some()
+        s.is_planning() || s.wants_plan().is_some() || s.plan_awaits_results()
     }
 
     /// Renews leases; returns those the worker lost.

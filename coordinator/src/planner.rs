@@ -43,6 +43,15 @@ pub const MIN_POINTS_FOR_FIT: usize = fitter::MIN_POINTS;
 /// starts in between (our choice; see docs/benchmarks.md for the cost).
 pub const FULL_SEARCH_EVERY: u32 = 8;
 
+/// Most LML evaluations of a warm start, and of each start of a full
+/// search (our choice, measured in docs/benchmarks.md): a warm start only
+/// follows the optimum as a few points are added, and on smooth
+/// deterministic outputs the likelihood is flat within rounding near its
+/// optimum, where the line search would otherwise spend hundreds of
+/// evaluations.
+pub const WARM_EVALUATIONS: usize = 20;
+pub const FULL_EVALUATIONS: usize = 100;
+
 /// Above this many points, rounds between full searches keep the
 /// hyperparameters instead of warm-starting their search (our choice).
 pub const HOLD_ABOVE: usize = 300;
@@ -147,6 +156,11 @@ impl Planner {
             // A full search on a subset: about a second even at thousands
             // of points (the posterior still uses every point).
             max_hyper_points: HOLD_ABOVE,
+            max_evaluations: Some(if full {
+                FULL_EVALUATIONS
+            } else {
+                WARM_EVALUATIONS
+            }),
             ..FitOptions::default()
         };
         self.rounds += 1;

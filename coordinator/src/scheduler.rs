@@ -667,6 +667,17 @@ impl Scheduler {
         self.next_batch
     }
 
+    /// Whether a reproducible sweep will plan its next batch as soon as the
+    /// points still running report: a worker offered nothing now will have
+    /// work within a planning round.
+    pub fn plan_awaits_results(&self) -> bool {
+        self.reproducible
+            && !self.planning
+            && self.stop_reason.is_none()
+            && !self.pending.is_empty()
+            && (self.spec.budget as usize) > self.points.len()
+    }
+
     /// Whether the planner should propose points now, and how many.
     ///
     /// Reproducible sweeps plan a batch (`batch`, default

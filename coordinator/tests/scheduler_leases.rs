@@ -31,7 +31,11 @@ minimize = "value"
 "#;
 
 fn scheduler() -> Scheduler {
-    let spec = spec::parse(SPEC, "t.toml").expect("valid spec");
+    scheduler_for(SPEC)
+}
+
+fn scheduler_for(text: &str) -> Scheduler {
+    let spec = spec::parse(text, "t.toml").expect("valid spec");
     let points: Vec<PointRecord> = (0..2)
         .map(|i| PointRecord {
             id: i + 1,
@@ -220,4 +224,35 @@ fn unknown_worker_must_join_again() {
         .request_work("w9-gone", 1, Instant::now())
         .expect_err("unknown");
     assert_eq!(err, ScheduleError::UnknownWorker("w9-gone".into()));
+}
+
+/// A reproducible sweep plans its next batch only when every result is in;
+/// while the last runs are under way, a worker offered nothing is told that
+/// a plan is due (so it asks again within a planning round instead of
+/// idling for the long retry), and not once the budget is spent.
+#[test]
+fn a_reproducible_sweep_awaiting_results_says_a_plan_is_due() {
+    let text = SPEC.replace("budget = 2", "budget = 6");
+    let mut s = scheduler_for(&text);
+    s.set_reproducible(true);
+    let t0 = Instant::now();
+    let a = s.join(info(&["branin"]), t0).expect("join");
+    let g = s.request_work(&a, 4, t0).expect("work");
+    assert_eq!(g.len(), 4);
+    assert!(s.wants_plan().is_none(), "results still running");
+    assert!(s.plan_awaits_results());
+    for (i, l) in g.iter().enumerate() {
+        let d = s.decide(vec![ok(l.evaluation_id, &l.lease_id, i as f64)]);
+        s.apply_committed(&a, &d, &[CommitResult::Stored], t0);
+    }
+    assert!(!s.plan_awaits_results(), "nothing running");
+    assert!(s.wants_plan().is_some(), "every result in: plan now");
+
+    // The budget of the original file is spent: no plan is due.
+    let mut s = scheduler();
+    s.set_reproducible(true);
+    let a = s.join(info(&["branin"]), t0).expect("join");
+    let g = s.request_work(&a, 4, t0).expect("work");
+    assert_eq!(g.len(), 4);
+    assert!(!s.plan_awaits_results());
 }

@@ -497,3 +497,54 @@ fn sample_paths_have_the_posterior_mean_and_covariance() {
         assert_draws_match_posterior(&gp, &pts, &pathwise, &format!("pathwise {kernel:?}"));
     }
 }
+
+#[test]
+fn capped_searches_keep_their_best_point() {
+    // With the planner's caps (100 LML evaluations per start of a full
+    // search) the fit still reaches scikit-learn's optimum on the fixture
+    // (gp_sklearn.json, n_restarts_optimizer=5). A warm start capped at 20
+    // evaluations, and one capped at a single evaluation, end no worse than
+    // where they started: a capped run returns the best point it evaluated.
+    let f = fixture();
+    let (obs, _) = data(&f);
+    let theirs = num(&f["optimised"]["lml"]);
+    let capped = fit(
+        &obs,
+        &FitOptions {
+            max_evaluations: Some(100),
+            ..FitOptions::default()
+        },
+    )
+    .expect("fit");
+    let ours = capped.log_marginal_likelihood();
+    assert!(
+        ours >= theirs - 1e-6 * theirs.abs(),
+        "capped {ours} sklearn {theirs}"
+    );
+    let mut start = capped.hyper().clone();
+    start.lengthscales.iter_mut().for_each(|l| *l *= 1.7);
+    start.signal_var *= 0.5;
+    let at_start = Gp::with_hyper(&obs, KernelKind::Matern52, start.clone(), true)
+        .expect("gp")
+        .log_marginal_likelihood();
+    for budget in [1, 20] {
+        let warm = fit(
+            &obs,
+            &FitOptions {
+                restarts: 0,
+                start: Some(start.clone()),
+                max_evaluations: Some(budget),
+                ..FitOptions::default()
+            },
+        )
+        .expect("fit");
+        let lml = warm.log_marginal_likelihood();
+        assert!(
+            lml >= at_start - 1e-9 * at_start.abs(),
+            "budget {budget}: {lml} below the start's {at_start}"
+        );
+        if budget == 20 {
+            assert!(lml > at_start, "20 evaluations improve on the start");
+        }
+    }
+}

@@ -6,6 +6,7 @@
 //! m(theta) = 1^T K^-1 y / 1^T K^-1 1; by the envelope theorem the gradient of
 //! the profiled LML is the partial gradient at fixed m.
 
+use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Mutex;
 
 use argmin::core::{CostFunction, Executor, Gradient};
@@ -50,6 +51,15 @@ pub struct FitOptions {
     /// factorisation.
     #[serde(default)]
     pub hold: bool,
+    /// Most LML evaluations per start (`None`: no limit beyond the
+    /// iteration limit). A start that spends them ends at the best point it
+    /// evaluated. For planners that refit every few points: on smooth
+    /// deterministic outputs the optimum lies at a large signal variance
+    /// with the nugget at its bound, where rounding makes the LML noisy at
+    /// about 1e-5 relative and the line search can spend hundreds of
+    /// evaluations on that noise.
+    #[serde(default)]
+    pub max_evaluations: Option<usize>,
 }
 
 impl Default for FitOptions {
@@ -62,6 +72,7 @@ impl Default for FitOptions {
             max_hyper_points: 1000,
             start: None,
             hold: false,
+            max_evaluations: None,
         }
     }
 }
@@ -204,11 +215,16 @@ type Evaluation = (Vec<f64>, f64, Vec<f64>);
 
 /// The minimised objective: -LML / n plus the box penalty; cost and
 /// gradient of one evaluation are cached (argmin asks for them separately).
+/// After `budget` evaluations it refuses to evaluate (the run then stops
+/// with the best point seen).
 struct Objective<'a> {
     data: &'a Data<'a>,
     lo: Vec<f64>,
     hi: Vec<f64>,
     cache: Mutex<Option<Evaluation>>,
+    budget: usize,
+    used: &'a AtomicUsize,
+    best: &'a Mutex<Option<(Vec<f64>, f64)>>,
 }
 
 impl Objective<'_> {
@@ -219,6 +235,12 @@ impl Objective<'_> {
                     return Ok((*c, g.clone()));
                 }
             }
+        }
+        if self.used.fetch_add(1, Ordering::Relaxed) >= self.budget {
+            return Err(GpError::OptimisationFailed {
+                restarts: 1,
+                last: "evaluation budget spent".into(),
+            });
         }
         let n = self.data.n() as f64;
         let r = self.data.lml(theta)?;
@@ -237,6 +259,11 @@ impl Objective<'_> {
         }
         if let Ok(mut guard) = self.cache.lock() {
             *guard = Some((theta.to_vec(), cost, grad.clone()));
+        }
+        if let Ok(mut guard) = self.best.lock() {
+            if guard.as_ref().is_none_or(|b| cost < b.1) {
+                *guard = Some((theta.to_vec(), cost));
+            }
         }
         Ok((cost, grad))
     }
@@ -258,19 +285,26 @@ impl Gradient for Objective<'_> {
     }
 }
 
-/// One L-BFGS run from `start`; returns the clamped optimum and its LML.
+/// One L-BFGS run from `start` of at most `max_iters` iterations and
+/// `budget` evaluations; returns the clamped optimum and its LML.
 fn run_start(
     data: &Data<'_>,
     lo: &[f64],
     hi: &[f64],
     start: Vec<f64>,
     max_iters: u64,
+    budget: usize,
 ) -> Result<(Vec<f64>, f64), String> {
+    let used = AtomicUsize::new(0);
+    let seen = Mutex::new(None);
     let obj = Objective {
         data,
         lo: lo.to_vec(),
         hi: hi.to_vec(),
         cache: Mutex::new(None),
+        budget,
+        used: &used,
+        best: &seen,
     };
     let solver = LBFGS::new(MoreThuenteLineSearch::new(), 7)
         .with_tolerance_grad(1e-7)
@@ -281,7 +315,10 @@ fn run_start(
         .run()
     {
         Ok(res) => res.state().best_param.clone().unwrap_or(start),
-        Err(e) => return Err(e.to_string()),
+        Err(e) => match seen.into_inner().ok().flatten() {
+            Some((best, _)) if used.load(Ordering::Relaxed) > budget => best,
+            _ => return Err(e.to_string()),
+        },
     };
     let clamped: Vec<f64> = best
         .iter()
@@ -398,9 +435,10 @@ pub(super) fn fit(obs: &Observations, opts: &FitOptions) -> Result<Gp, GpError> 
         }
         starts.push(s);
     }
+    let budget = opts.max_evaluations.unwrap_or(usize::MAX);
     let results: Vec<Result<(Vec<f64>, f64), String>> = starts
         .into_par_iter()
-        .map(|s| run_start(&data, &lo, &hi, s, MAX_ITERS))
+        .map(|s| run_start(&data, &lo, &hi, s, MAX_ITERS, budget))
         .collect();
     let mut best: Option<(Vec<f64>, f64)> = None;
     let mut last_err = String::new();
@@ -435,7 +473,7 @@ pub(super) fn fit(obs: &Observations, opts: &FitOptions) -> Result<Gp, GpError> 
             .lml(&theta)
             .map(|r| r.value)
             .unwrap_or(f64::NEG_INFINITY);
-        if let Ok((t, v)) = run_start(&full, &lo, &hi, theta.clone(), POLISH_ITERS) {
+        if let Ok((t, v)) = run_start(&full, &lo, &hi, theta.clone(), POLISH_ITERS, usize::MAX) {
             if v > start_lml {
                 theta = t;
             }
