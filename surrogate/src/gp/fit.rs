@@ -51,8 +51,9 @@ pub struct FitOptions {
     /// factorisation.
     #[serde(default)]
     pub hold: bool,
-    /// Most LML evaluations per start (`None`: no limit beyond the
-    /// iteration limit). A start that spends them ends at the best point it
+    /// Most LML evaluations per start, and for the polish on all
+    /// observations after a subset fit (`None`: no limit beyond the
+    /// iteration limits). A run that spends them ends at the best point it
     /// evaluated. For planners that refit every few points: on smooth
     /// deterministic outputs the optimum lies at a large signal variance
     /// with the nugget at its bound, where rounding makes the LML noisy at
@@ -473,7 +474,7 @@ pub(super) fn fit(obs: &Observations, opts: &FitOptions) -> Result<Gp, GpError> 
             .lml(&theta)
             .map(|r| r.value)
             .unwrap_or(f64::NEG_INFINITY);
-        if let Ok((t, v)) = run_start(&full, &lo, &hi, theta.clone(), POLISH_ITERS, usize::MAX) {
+        if let Ok((t, v)) = run_start(&full, &lo, &hi, theta.clone(), POLISH_ITERS, budget) {
             if v > start_lml {
                 theta = t;
             }
