@@ -394,6 +394,7 @@ impl Engine {
         let mut planner = Planner::new();
         planner.continue_waves(self.status().waves.len() as u32);
         let mut small_rounds = 0u32;
+        let mut pace = PlanningPace::default();
         loop {
             tokio::select! {
                 _ = stop.cancelled() => break,
@@ -446,6 +447,9 @@ impl Engine {
                     }
                     s.set_planning(false);
                     tracing::info!(points = n, batch, ms, "proposed new points");
+                    if let Some(text) = pace.add(ms, n, s.mean_run_ms(), s.slots()) {
+                        tracing::warn!("{text}");
+                    }
                 }
                 Err(e) => {
                     tracing::error!(error = %e, "storing proposed points failed");
@@ -645,5 +649,69 @@ impl Engine {
     /// this call (used at shutdown: nothing is left half-written).
     pub async fn flush(&self) {
         let _ = self.store.call(|_| ()).await;
+    }
+}
+
+/// Planning rounds before the planning time is compared with the runs'.
+const PACE_ROUNDS: u32 = 8;
+
+/// Tracks whether planning outlasts the runs it plans, to say so once.
+#[derive(Default)]
+struct PlanningPace {
+    rounds: u32,
+    planning_ms: u64,
+    points: u64,
+    warned: bool,
+}
+
+impl PlanningPace {
+    /// Adds a round; after [`PACE_ROUNDS`] rounds, returns the warning (once)
+    /// if a round's planning took longer on average than running its points
+    /// on the connected slots.
+    fn add(&mut self, ms: u64, points: usize, run_ms: Option<f64>, slots: usize) -> Option<String> {
+        self.rounds += 1;
+        self.planning_ms += ms;
+        self.points += points as u64;
+        let run_ms = run_ms?;
+        if self.warned || self.rounds < PACE_ROUNDS || slots == 0 {
+            return None;
+        }
+        let plan = self.planning_ms as f64 / f64::from(self.rounds);
+        let per_round = self.points as f64 / f64::from(self.rounds);
+        let run = run_ms * (per_round / slots as f64).ceil().max(1.0);
+        if plan <= run {
+            return None;
+        }
+        self.warned = true;
+        Some(format!(
+            "planning takes longer than the runs it plans: {plan:.0} ms of planning per round against about {run:.0} ms to run the round's points on {slots} slots (over the {} rounds so far); most of this sweep's time goes to the surrogate, not the model. For a model this fast, a plain Latin hypercube of the whole budget (`initial` = `budget`) or larger batches (`batch`) finish sooner.",
+            self.rounds
+        ))
+    }
+}
+
+#[cfg(test)]
+mod pace_tests {
+    use super::PlanningPace;
+
+    /// 4 points a round on 2 slots with 100 ms runs: a round's runs take
+    /// 2 x 100 ms (arithmetic). Planning of 150 ms a round stays quiet;
+    /// 250 ms warns once, after the eighth round, and not again.
+    #[test]
+    fn warns_once_when_planning_outlasts_the_runs() {
+        let mut quiet = PlanningPace::default();
+        for _ in 0..20 {
+            assert!(quiet.add(150, 4, Some(100.0), 2).is_none());
+        }
+        let mut slow = PlanningPace::default();
+        let said: Vec<usize> = (0..20)
+            .filter_map(|i| slow.add(250, 4, Some(100.0), 2).map(|_| i))
+            .collect();
+        assert_eq!(said, vec![7], "once, at the eighth round");
+        // No run timed yet: nothing to compare with.
+        let mut none = PlanningPace::default();
+        for _ in 0..10 {
+            assert!(none.add(1000, 4, None, 2).is_none());
+        }
     }
 }

@@ -210,6 +210,9 @@ pub struct Scheduler {
     next_batch: u32,
     /// Where runs fail, worked out again only when the failure count changes.
     failure_region: std::sync::Mutex<(u64, Option<String>)>,
+    /// Wall time of the successful runs reported since the start, and how many.
+    run_ms: u64,
+    runs_timed: u64,
 }
 
 impl Scheduler {
@@ -244,6 +247,8 @@ impl Scheduler {
             waves: Vec::new(),
             next_batch: 1,
             failure_region: std::sync::Mutex::new((0, None)),
+            run_ms: 0,
+            runs_timed: 0,
         };
         s.add_points(points);
         let mut evals: Vec<&EvaluationRecord> = evaluations.iter().collect();
@@ -579,6 +584,12 @@ impl Scheduler {
             }
             match &d.report.outcome {
                 ReportOutcome::Metrics(m) => {
+                    self.run_ms = self.run_ms.saturating_add(
+                        d.report
+                            .ended_unix_ms
+                            .saturating_sub(d.report.started_unix_ms),
+                    );
+                    self.runs_timed += 1;
                     if let Some(p) = self.pending.remove(&eid) {
                         self.release_lease_of(eid, &p);
                         if let Some(pt) = self.points.get_mut(&p.point_id) {
@@ -665,6 +676,21 @@ impl Scheduler {
     /// The batch number the next planning round gets.
     pub fn next_batch(&self) -> u32 {
         self.next_batch
+    }
+
+    /// Mean wall time of the successful runs reported since the
+    /// coordinator started (ms), if any were.
+    pub fn mean_run_ms(&self) -> Option<f64> {
+        (self.runs_timed > 0).then(|| self.run_ms as f64 / self.runs_timed as f64)
+    }
+
+    /// Slots of the connected workers.
+    pub fn slots(&self) -> usize {
+        self.workers
+            .values()
+            .filter(|w| !w.left)
+            .map(|w| w.info.slots as usize)
+            .sum()
     }
 
     /// Whether a reproducible sweep will plan its next batch as soon as the

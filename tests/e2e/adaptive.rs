@@ -49,6 +49,51 @@ fn branin_minimum_is_found_within_forty_runs() {
     assert!(close >= 4, "best values {found:?}");
 }
 
+/// When planning a round takes longer than running its points (the
+/// built-in Branin returns at once), `tessera run` says so once and names
+/// the cheaper alternatives; with runs of 300 ms (a round of 4 points on 2
+/// slots: 600 ms) it stays quiet.
+#[test]
+fn planning_slower_than_the_runs_is_said_plainly() {
+    let tmp = tempfile::tempdir().expect("temp dir");
+    let dir = tmp.path();
+    let sweep = |name: &str, budget: u32, fixed: &str| {
+        let p = dir.join(format!("{name}.toml"));
+        std::fs::write(
+            &p,
+            format!(
+                "name = \"{name}\"\nseed = 3\nbudget = {budget}\ninitial = 10\n\
+                 [model]\nname = \"branin\"\n{fixed}[params.x1]\nrange = [-5.0, 10.0]\n\
+                 [params.x2]\nrange = [0.0, 15.0]\n[objective]\nminimize = \"value\"\n"
+            ),
+        )
+        .expect("write");
+        p
+    };
+    let fast = sweep("fast", 60, "");
+    let out = run_in(
+        dir,
+        &["run", fast.to_str().expect("path"), "--workers", "2"],
+    );
+    ok(&out, "fast sweep");
+    let err = text(&out.stderr);
+    assert_eq!(
+        err.matches("planning takes longer than the runs it plans")
+            .count(),
+        1,
+        "{err}"
+    );
+    assert!(err.contains("`initial` = `budget`"), "{err}");
+    let slow = sweep("slow", 46, "[model.fixed]\ndelay_ms = 300\n");
+    let out = run_in(
+        dir,
+        &["run", slow.to_str().expect("path"), "--workers", "2"],
+    );
+    ok(&out, "slow sweep");
+    let err = text(&out.stderr);
+    assert!(!err.contains("planning takes longer"), "{err}");
+}
+
 /// Published Hartmann-6 minimum (Surjanovic & Bingham VLSE; Dixon & Szegő 1978).
 const HARTMANN6_MIN: f64 = -3.322_368_011_415_51;
 
