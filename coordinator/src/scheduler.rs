@@ -740,13 +740,7 @@ impl Scheduler {
             if learned < enough && !self.pending.is_empty() {
                 return None;
             }
-            let slots: usize = self
-                .workers
-                .values()
-                .filter(|w| !w.left)
-                .map(|w| w.info.slots as usize)
-                .sum::<usize>()
-                .max(1);
+            let slots = self.slots().max(1);
             // Plan when less than half the slots' worth waits, for as many
             // points as fill the queue to the slots' worth: large batches
             // are cheap to plan, small ones cost a search per point.

@@ -224,6 +224,5 @@ fn cross(gp: &Gp, a: &[f64], na: usize, b: &[f64], nb: usize) -> Vec<f64> {
     if gp.d == 0 {
         return vec![gp.hyper.signal_var; na * nb];
     }
-    let inv_l: Vec<f64> = gp.hyper.lengthscales.iter().map(|l| 1.0 / l).collect();
-    kernel_cross(gp.kernel, a, b, gp.d, gp.hyper.signal_var, &inv_l)
+    kernel_cross(gp.kernel, a, b, gp.d, gp.hyper.signal_var, &gp.inv_l())
 }
